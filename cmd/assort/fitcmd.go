@@ -1,0 +1,207 @@
+package main
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"strings"
+
+	"assort/dbio"
+	"assort/schema"
+)
+
+// fitSpec is everything `assort fit` was asked to do.
+type fitSpec struct {
+	name      string
+	query     string
+	key       string
+	features  []string
+	method    string
+	k         int
+	seed      uint64
+	restarts  int
+	maxIter   int
+	tol       float64
+	scale     string
+	missing   string
+	workers   int
+	chunkRows int
+
+	// mixtures
+	covariance string
+	reg        float64
+	floor      float64
+	init       string
+
+	json bool
+}
+
+const fitSynopsis = "assort fit NAME --query SQL --key COLUMN --k K [flags]"
+
+func runFit(ctx context.Context, e *env, args []string) error {
+	var s fitSpec
+	fs := e.flagSet("fit", fitSynopsis)
+	fs.StringVar(&s.query, "query", "", "SQL query returning the key and the feature columns (required)")
+	fs.StringVar(&s.key, "key", "", "column that identifies a row; its type is kept (required)")
+	fs.StringSliceVar(&s.features, "features", nil, "feature columns, comma-separated (default: every column but the key)")
+	fs.StringVar(&s.method, "method", "kmeans", "kmeans or gmm (Gaussian mixture)")
+	fs.IntVar(&s.k, "k", 0, "number of clusters (required)")
+	fs.Uint64Var(&s.seed, "seed", 1, "seed of every random choice; the same seed gives the same result")
+	fs.IntVar(&s.restarts, "restarts", 0, "independent starts, the best kept (default 10 for kmeans, 4 for gmm)")
+	fs.IntVar(&s.maxIter, "max-iter", 0, "iteration limit per start (default 300 for kmeans, 200 for gmm)")
+	fs.Float64Var(&s.tol, "tol", 0, "convergence tolerance (default 1e-4 for kmeans: centre shift relative to total variance; 1e-6 for gmm: change of mean log-likelihood per row)")
+	fs.StringVar(&s.scale, "scale", "none", "feature scaling before fitting: none, standard (mean, standard deviation) or robust (median, interquartile range)")
+	fs.StringVar(&s.missing, "missing", "fail", "a row with a NULL, NaN or infinite feature: fail, or skip (counted in rows_skipped)")
+	fs.StringVar(&s.covariance, "covariance", "full", "gmm: full, diag, spherical or pooled")
+	fs.Float64Var(&s.reg, "reg", 1e-6, "gmm: added to covariance diagonals, times the mean feature variance")
+	fs.Float64Var(&s.floor, "membership-floor", 0.001, "gmm: smallest membership probability written to the memberships table; 0 keeps all")
+	fs.StringVar(&s.init, "init", "kmeans", "gmm: kind of the first start: kmeans, kmeans++ or random (later starts mix kinds)")
+	fs.IntVar(&s.workers, "workers", 0, "worker goroutines for the numerics (default GOMAXPROCS)")
+	fs.IntVar(&s.chunkRows, "chunk-rows", 0, "rows per chunk read from the server (default 65536)")
+	fs.BoolVar(&s.json, "json", false, "print a JSON summary on stdout")
+	if err := e.parse(fs, args); err != nil {
+		return err
+	}
+	if fs.NArg() != 1 {
+		return usagef("fit takes one model name, got %d arguments", fs.NArg())
+	}
+	s.name = fs.Arg(0)
+	if err := s.check(fs.Changed); err != nil {
+		return err
+	}
+	res, err := fitJob(ctx, e, &s)
+	if err != nil {
+		return err
+	}
+	return report(e, s.json, res)
+}
+
+// check validates flags before anything touches the database.
+func (s *fitSpec) check(changed func(string) bool) error {
+	if err := schema.ValidateModelName(s.name); err != nil {
+		return usagef("%v", err)
+	}
+	switch {
+	case strings.TrimSpace(s.query) == "":
+		return usagef("--query is required")
+	case s.key == "":
+		return usagef("--key is required")
+	case s.k < 1:
+		return usagef("--k must be at least 1, got %d", s.k)
+	case s.restarts < 0:
+		return usagef("--restarts must not be negative, got %d", s.restarts)
+	case s.maxIter < 0:
+		return usagef("--max-iter must not be negative, got %d", s.maxIter)
+	case s.tol < 0 || math.IsNaN(s.tol) || math.IsInf(s.tol, 0):
+		return usagef("--tol must be a non-negative number, got %v", s.tol)
+	case s.workers < 0:
+		return usagef("--workers must not be negative, got %d", s.workers)
+	case s.chunkRows < 0:
+		return usagef("--chunk-rows must not be negative, got %d", s.chunkRows)
+	}
+	switch s.method {
+	case "kmeans":
+		for _, f := range []string{"covariance", "reg", "membership-floor", "init"} {
+			if changed(f) {
+				return usagef("--%s applies to --method gmm only", f)
+			}
+		}
+	case "gmm":
+		switch s.covariance {
+		case "full", "diag", "spherical", "pooled":
+		default:
+			return usagef("--covariance must be full, diag, spherical or pooled, got %q", s.covariance)
+		}
+		if s.reg < 0 || math.IsNaN(s.reg) || math.IsInf(s.reg, 0) {
+			return usagef("--reg must be a non-negative number, got %v", s.reg)
+		}
+		if !(s.floor >= 0 && s.floor < 1) {
+			return usagef("--membership-floor must be in [0, 1), got %v", s.floor)
+		}
+		switch s.init {
+		case "kmeans", "kmeans++", "random":
+		default:
+			return usagef("--init must be kmeans, kmeans++ or random, got %q", s.init)
+		}
+	default:
+		return usagef("--method must be kmeans or gmm, got %q", s.method)
+	}
+	switch s.scale {
+	case "none", "standard", "robust":
+	default:
+		return usagef("--scale must be none, standard or robust, got %q", s.scale)
+	}
+	switch s.missing {
+	case "fail", "skip":
+	default:
+		return usagef("--missing must be fail or skip, got %q", s.missing)
+	}
+	seen := map[string]bool{}
+	for _, f := range s.features {
+		if f == "" {
+			return usagef("--features: empty column name")
+		}
+		if seen[f] {
+			return usagef("--features: column %q listed twice", f)
+		}
+		seen[f] = true
+	}
+	return nil
+}
+
+func (s *fitSpec) missingPolicy() dbio.Missing {
+	if s.missing == "skip" {
+		return dbio.MissingSkip
+	}
+	return dbio.MissingFail
+}
+
+// summary is what a finished fit reports.
+type summary struct {
+	Model       string             `json:"model"`
+	Version     int                `json:"version"`
+	Method      string             `json:"method"`
+	Algorithm   string             `json:"algorithm"`
+	K           int                `json:"k"`
+	Features    []string           `json:"features"`
+	RowsRead    int64              `json:"rows_read"`
+	RowsUsed    int64              `json:"rows_used"`
+	RowsSkipped int64              `json:"rows_skipped"`
+	Inertia     *float64           `json:"inertia,omitempty"`
+	LogLik      *float64           `json:"log_likelihood,omitempty"`
+	BIC         *float64           `json:"bic,omitempty"`
+	AIC         *float64           `json:"aic,omitempty"`
+	Iterations  int                `json:"iterations"`
+	Converged   bool               `json:"converged"`
+	Stop        string             `json:"stop_reason"`
+	Table       string             `json:"table"`
+	View        string             `json:"view"`
+	Memberships string             `json:"memberships_table,omitempty"`
+	Published   bool               `json:"published"`
+	Clusters    []schema.Component `json:"clusters"`
+	Seconds     map[string]float64 `json:"seconds"`
+}
+
+func report(e *env, asJSON bool, s *summary) error {
+	if asJSON {
+		return writeJSON(e.stdout, s)
+	}
+	fmt.Fprintf(e.stdout, "%s@%d: %s, k=%d, %d rows used (%d read, %d skipped)\n",
+		s.Model, s.Version, s.Algorithm, s.K, s.RowsUsed, s.RowsRead, s.RowsSkipped)
+	if s.Inertia != nil {
+		fmt.Fprintf(e.stdout, "  inertia %.6g", *s.Inertia)
+	}
+	if s.LogLik != nil {
+		fmt.Fprintf(e.stdout, "  log-likelihood %.6g  BIC %.6g  AIC %.6g", *s.LogLik, *s.BIC, *s.AIC)
+	}
+	conv := "converged"
+	if !s.Converged {
+		conv = "NOT converged"
+	}
+	fmt.Fprintf(e.stdout, "  after %d iterations (%s: %s)\n", s.Iterations, conv, s.Stop)
+	fmt.Fprintf(e.stdout, "  results in %s, published as %s\n", s.Table, s.View)
+	if s.Memberships != "" {
+		fmt.Fprintf(e.stdout, "  memberships in %s\n", s.Memberships)
+	}
+	return writeComponents(e.stdout, s.Features, s.Clusters)
+}

@@ -1,0 +1,36 @@
+// Command assort clusters rows held in PostgreSQL and writes the results
+// back as versioned tables. See usage.go for the commands and README.md for
+// the table layout.
+package main
+
+import (
+	"context"
+	"os"
+	"os/signal"
+	"syscall"
+)
+
+func main() {
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	sig := make(chan os.Signal, 1)
+	signal.Notify(sig, os.Interrupt, syscall.SIGTERM)
+	code := run(ctx, os.Args[1:], os.Stdout, os.Stderr)
+	stop()
+	if code != exitOK && ctx.Err() != nil {
+		select {
+		case s := <-sig:
+			code = signalStatus(s)
+		default:
+		}
+	}
+	os.Exit(code)
+}
+
+// signalStatus is the conventional exit status of a run ended by s:
+// 128 + the signal number (130 for SIGINT, 143 for SIGTERM).
+func signalStatus(s os.Signal) int {
+	if n, ok := s.(syscall.Signal); ok {
+		return 128 + int(n)
+	}
+	return exitFailure
+}
