@@ -26,7 +26,7 @@ type dataset struct {
 	skipped  int64
 }
 
-func (d *dataset) n() int           { return d.keys.Len() }
+func (d *dataset) n() int { return d.keys.Len() }
 func (d *dataset) featureNames() []string {
 	names := make([]string, len(d.features))
 	for i, f := range d.features {
