@@ -333,3 +333,29 @@ func quoteList(names []string) string {
 	}
 	return strings.Join(q, ", ")
 }
+
+// CheckFree makes sure the stable views of model can be created: a
+// relation of that name must be absent, or a view of a model the registry
+// knows.
+func (r Registry) CheckFree(ctx context.Context, q Querier, model string) error {
+	for _, id := range []pgx.Identifier{View(r.Schema, model), MembershipsView(r.Schema, model)} {
+		var kind string
+		var known bool
+		err := q.QueryRow(ctx, `SELECT c.relkind::text, EXISTS (SELECT 1 FROM `+r.table("models")+` WHERE name = $3)
+			FROM pg_class c JOIN pg_namespace n ON n.oid = c.relnamespace
+			WHERE n.nspname = $1 AND c.relname = $2`, id[0], id[1], model).Scan(&kind, &known)
+		if errors.Is(err, pgx.ErrNoRows) {
+			continue
+		}
+		if err != nil {
+			return fmt.Errorf("check name %s: %w", model, err)
+		}
+		if kind != "v" {
+			return fmt.Errorf("model name %q: %s already exists and is not a view; choose another name or schema", model, id.Sanitize())
+		}
+		if !known {
+			return fmt.Errorf("model name %q: view %s exists but the registry has no model of that name; choose another name or schema", model, id.Sanitize())
+		}
+	}
+	return nil
+}

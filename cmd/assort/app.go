@@ -5,7 +5,9 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"strconv"
 	"strings"
+	"time"
 
 	"github.com/jackc/pgx/v5"
 	"github.com/spf13/pflag"
@@ -28,6 +30,9 @@ func commands() []command {
 	return []command{
 		{"migrate", "create or upgrade the registry", runMigrate},
 		{"fit", "fit a model to a query's rows and publish a new version", runFit},
+		{"publish", "point a model's stable views at one of its versions", runPublish},
+		{"prune", "drop the result tables of old unpublished versions", runPrune},
+		{"drop", "drop one version of a model, or the whole model", runDrop},
 		{"models", "list model versions", runModels},
 		{"show", "show one model version and its clusters", runShow},
 		{"demo", "run the whole job on invented data in a throwaway PostgreSQL", runDemo},
@@ -41,7 +46,18 @@ type env struct {
 	db             string
 	schema         string
 	quiet          bool
+
+	statementTimeout time.Duration
+	lockTimeout      time.Duration
 }
+
+// Defaults of the server-side timeouts: long enough for a COPY of a
+// billion-row table, short enough that a stuck run does not hold a
+// scheduler slot forever.
+const (
+	defaultStatementTimeout = 6 * time.Hour
+	defaultLockTimeout      = time.Minute
+)
 
 // logf writes a progress line to stderr unless --quiet.
 func (e *env) logf(format string, args ...any) {
@@ -93,6 +109,8 @@ func (e *env) flagSet(name, synopsis string) *pflag.FlagSet {
 	fs.StringVarP(&e.db, "db", "d", "", "libpq connection string or URL (default: $DATABASE_URL, then libpq's PG* variables)")
 	fs.StringVar(&e.schema, "schema", schema.DefaultSchema, "schema of the registry and the result tables")
 	fs.BoolVarP(&e.quiet, "quiet", "q", false, "no progress lines on stderr")
+	fs.DurationVar(&e.statementTimeout, "statement-timeout", defaultStatementTimeout, "server-side limit on any one statement (0: none)")
+	fs.DurationVar(&e.lockTimeout, "lock-timeout", defaultLockTimeout, "server-side limit on waiting for a table lock (0: none)")
 	fs.Usage = func() {
 		fmt.Fprintf(e.stderr, "usage: %s\n\nflags:\n%s", synopsis, fs.FlagUsages())
 	}
@@ -110,12 +128,18 @@ func (e *env) parse(fs *pflag.FlagSet, args []string) error {
 	if err := schema.ValidateSchemaName(e.schema); err != nil {
 		return usagef("--schema: %v", err)
 	}
+	if e.statementTimeout < 0 || e.lockTimeout < 0 {
+		return usagef("--statement-timeout and --lock-timeout must not be negative")
+	}
 	return nil
 }
 
 // connect opens a connection named for the command in pg_stat_activity.
 func (e *env) connect(ctx context.Context, role string) (*pgx.Conn, error) {
-	return dbio.Connect(ctx, dbio.ConnConfig{URL: e.db, AppName: "assort " + role})
+	return dbio.Connect(ctx, dbio.ConnConfig{URL: e.db, AppName: "assort " + role, Settings: map[string]string{
+		"statement_timeout": strconv.FormatInt(e.statementTimeout.Milliseconds(), 10),
+		"lock_timeout":      strconv.FormatInt(e.lockTimeout.Milliseconds(), 10),
+	}})
 }
 
 func usage() string {

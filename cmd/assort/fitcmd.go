@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"strings"
+	"time"
 
 	"assort/dbio"
 	"assort/schema"
@@ -33,7 +34,10 @@ type fitSpec struct {
 	floor      float64
 	init       string
 
-	json bool
+	json      bool
+	wait      time.Duration
+	retries   int
+	noPublish bool
 }
 
 const fitSynopsis = "assort fit NAME --query SQL --key COLUMN --k K [flags]"
@@ -59,6 +63,9 @@ func runFit(ctx context.Context, e *env, args []string) error {
 	fs.IntVar(&s.workers, "workers", 0, "worker goroutines for the numerics (default GOMAXPROCS)")
 	fs.IntVar(&s.chunkRows, "chunk-rows", 0, "rows per chunk read from the server (default 65536)")
 	fs.BoolVar(&s.json, "json", false, "print a JSON summary on stdout")
+	fs.DurationVar(&s.wait, "wait", 0, "wait this long for another run of the same model to finish (default: exit at once with status 3)")
+	fs.IntVar(&s.retries, "retries", 0, "after a lost connection or server restart, run the whole job again up to this many times, with backoff")
+	fs.BoolVar(&s.noPublish, "no-publish", false, "leave the new version ready but keep the stable views on the published one")
 	if err := e.parse(fs, args); err != nil {
 		return err
 	}
@@ -69,7 +76,7 @@ func runFit(ctx context.Context, e *env, args []string) error {
 	if err := s.check(fs.Changed); err != nil {
 		return err
 	}
-	res, err := fitJob(ctx, e, &s)
+	res, err := withRetries(ctx, e, s.retries, func() (*summary, error) { return fitJob(ctx, e, &s) })
 	if err != nil {
 		return err
 	}
@@ -98,6 +105,10 @@ func (s *fitSpec) check(changed func(string) bool) error {
 		return usagef("--workers must not be negative, got %d", s.workers)
 	case s.chunkRows < 0:
 		return usagef("--chunk-rows must not be negative, got %d", s.chunkRows)
+	case s.wait < 0:
+		return usagef("--wait must not be negative, got %s", s.wait)
+	case s.retries < 0:
+		return usagef("--retries must not be negative, got %d", s.retries)
 	}
 	switch s.method {
 	case "kmeans":
@@ -199,7 +210,11 @@ func report(e *env, asJSON bool, s *summary) error {
 		conv = "NOT converged"
 	}
 	fmt.Fprintf(e.stdout, "  after %d iterations (%s: %s)\n", s.Iterations, conv, s.Stop)
-	fmt.Fprintf(e.stdout, "  results in %s, published as %s\n", s.Table, s.View)
+	if s.Published {
+		fmt.Fprintf(e.stdout, "  results in %s, published as %s\n", s.Table, s.View)
+	} else {
+		fmt.Fprintf(e.stdout, "  results in %s, not published\n", s.Table)
+	}
 	if s.Memberships != "" {
 		fmt.Fprintf(e.stdout, "  memberships in %s\n", s.Memberships)
 	}

@@ -99,12 +99,8 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	if err := schema.Check(ctx, w, e.schema); err != nil {
 		return nil, err
 	}
-	ok, err := reg.TryLock(ctx, w, s.name)
-	if err != nil {
+	if err := lockModel(ctx, w, reg, s.name, s.wait); err != nil {
 		return nil, err
-	}
-	if !ok {
-		return nil, &busyError{model: s.name}
 	}
 	defer reg.Unlock(context.WithoutCancel(ctx), w, s.name)
 	if err := reg.CheckFree(ctx, w, s.name); err != nil {
@@ -158,9 +154,9 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	if err := reg.Reserve(ctx, w, m); err != nil {
 		return nil, err
 	}
-	published := false
+	written := false
 	defer func() {
-		if !published {
+		if !written {
 			if err := reg.Abandon(context.WithoutCancel(ctx), w, m.Name, m.Version); err != nil {
 				e.warnf("could not remove the registry row of %s@%d: %v", m.Name, m.Version, err)
 			}
@@ -186,12 +182,16 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	e.logf("fitted in %.2fs: %d iterations, %s", times["fit"], m.Iterations, m.StopReason)
 
 	m.ResultTable = v.Results().Sanitize()
-	if err := writeVersion(ctx, w, reg, v, m, ds, out); err != nil {
+	if err := writeVersion(ctx, w, reg, v, m, ds, out, !s.noPublish); err != nil {
 		return nil, err
 	}
-	published = true
+	written = true
 	mark("write")
-	e.logf("wrote and published %s in %.2fs", m.ResultTable, times["write"])
+	if s.noPublish {
+		e.logf("wrote %s in %.2fs; not published (publish it with: assort publish %s)", m.ResultTable, times["write"], v)
+	} else {
+		e.logf("wrote and published %s in %.2fs", m.ResultTable, times["write"])
+	}
 
 	sum := &summary{
 		Model: m.Name, Version: m.Version, Method: m.Method, Algorithm: m.Algorithm, K: m.K,
@@ -199,7 +199,7 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 		Inertia: m.Inertia, LogLik: m.LogLikelihood, BIC: m.BIC, AIC: m.AIC,
 		Iterations: m.Iterations, Converged: m.Converged, Stop: m.StopReason,
 		Table: m.ResultTable, View: schema.View(e.schema, m.Name).Sanitize(),
-		Published: true, Clusters: out.components, Seconds: times,
+		Published: !s.noPublish, Clusters: out.components, Seconds: times,
 	}
 	if out.memberships != nil {
 		sum.Memberships = v.Memberships().Sanitize()
@@ -259,7 +259,7 @@ type fitted struct {
 // writeVersion creates v's result tables, loads them with COPY, records the
 // model and publishes it, all in one transaction: a failure or a kill at
 // any point leaves nothing visible.
-func writeVersion(ctx context.Context, conn *pgx.Conn, reg schema.Registry, v schema.Version, m *schema.Model, ds *dataset, out *fitted) error {
+func writeVersion(ctx context.Context, conn *pgx.Conn, reg schema.Registry, v schema.Version, m *schema.Model, ds *dataset, out *fitted, publish bool) error {
 	tx, err := conn.Begin(ctx)
 	if err != nil {
 		return fmt.Errorf("write %s: %w", v, err)
@@ -310,8 +310,10 @@ func writeVersion(ctx context.Context, conn *pgx.Conn, reg schema.Registry, v sc
 	if err := reg.Finish(ctx, tx, m, out.components); err != nil {
 		return err
 	}
-	if err := reg.Publish(ctx, tx, v, out.memberships != nil); err != nil {
-		return err
+	if publish {
+		if err := reg.Publish(ctx, tx, v, out.memberships != nil); err != nil {
+			return err
+		}
 	}
 	if err := tx.Commit(ctx); err != nil {
 		return fmt.Errorf("commit %s: %w", v, err)

@@ -1,0 +1,88 @@
+package main
+
+import (
+	"strings"
+	"testing"
+)
+
+// TestPublishPruneDrop walks a model through the lifecycle: an unpublished
+// fit leaves the view alone, publish moves it (also back to an older
+// version), prune never touches the published version, drop refuses the
+// published one.
+func TestPublishPruneDrop(t *testing.T) {
+	w := newWorkspace(t)
+	w.blobs(t, "pts", []int{30, 20, 10}, 3)
+	q := "SELECT id, x, y FROM " + w.table("pts")
+	fitN := func(where string, extra ...string) {
+		args := append([]string{"fit", "life", "--query", q + where, "--key", "id", "--k", "3"}, extra...)
+		mustAssort(t, w.args(args...)...)
+	}
+	viewRows := func() int {
+		var n int
+		w.scalar(t, "SELECT count(*) FROM "+w.table("life"), &n)
+		return n
+	}
+	fitN("")                                // v1: 60 rows, published
+	fitN(" WHERE id <= 50", "--no-publish") // v2: 50 rows, ready only
+	if n := viewRows(); n != 60 {
+		t.Fatalf("after --no-publish the view shows %d rows, want v1's 60", n)
+	}
+	mustAssort(t, w.args("publish", "life@2")...)
+	if n := viewRows(); n != 50 {
+		t.Fatalf("after publish life@2 the view shows %d rows, want 50", n)
+	}
+	mustAssort(t, w.args("publish", "life@1")...) // rollback
+	if n := viewRows(); n != 60 {
+		t.Fatalf("after publishing life@1 again the view shows %d rows, want 60", n)
+	}
+	var who string
+	w.scalar(t, "SELECT string_agg(version::text || '/' || (published_by = current_user)::text, ',' ORDER BY published_at) FROM "+w.table("publications"), &who)
+	if who != "1/true,2/true,1/true" {
+		t.Fatalf("publication history %q", who)
+	}
+	fitN(" WHERE id <= 40", "--no-publish") // v3
+	fitN(" WHERE id <= 30", "--no-publish") // v4
+
+	// keep 1: v4 stays as newest, v1 stays as published, v2 and v3 go.
+	mustAssort(t, w.args("prune", "life", "--keep", "1")...)
+	var statuses string
+	w.scalar(t, "SELECT string_agg(version || ':' || status, ',' ORDER BY version) FROM "+w.table("models"), &statuses)
+	if statuses != "1:ready,2:pruned,3:pruned,4:ready" {
+		t.Fatalf("after prune: %s", statuses)
+	}
+	var tables string
+	w.scalar(t, `SELECT string_agg(relname, ',' ORDER BY relname) FROM pg_class WHERE relnamespace = $1::regnamespace AND relname LIKE 'life_v%' AND relkind = 'r'`, &tables, w.schema)
+	if tables != "life_v1,life_v4" {
+		t.Fatalf("result tables after prune: %s", tables)
+	}
+
+	bad := []struct {
+		args []string
+		code int
+		msg  string
+	}{
+		{[]string{"prune", "life", "--keep", "0"}, exitUsage, "--keep must be at least 1"},
+		{[]string{"publish", "life@2"}, exitFailure, "the version is pruned"},
+		{[]string{"publish", "life@9"}, exitFailure, "life@9"},
+		{[]string{"publish", "life"}, exitUsage, "needs a version"},
+		{[]string{"drop", "life@1"}, exitFailure, "published version"},
+		{[]string{"show", "life@3"}, exitOK, "life@3 (pruned)"},
+	}
+	for _, b := range bad {
+		code, out, stderr := assort(t, w.args(b.args...)...)
+		if code != b.code || !strings.Contains(stderr+out, b.msg) {
+			t.Errorf("assort %v: exit %d, want %d with %q; output:\n%s%s", b.args, code, b.code, b.msg, out, stderr)
+		}
+	}
+	mustAssort(t, w.args("drop", "life@4")...)
+	mustAssort(t, w.args("drop", "life")...)
+	var left int
+	w.scalar(t, "SELECT count(*) FROM "+w.table("models"), &left)
+	if left != 0 {
+		t.Fatalf("%d registry rows left after dropping the model", left)
+	}
+	w.scalar(t, `SELECT coalesce(string_agg(relname, ','), '') FROM pg_class WHERE relnamespace = $1::regnamespace AND relname LIKE 'life%'`, &tables, w.schema)
+	if tables != "" {
+		t.Fatalf("relations left after dropping the model: %s", tables)
+	}
+}

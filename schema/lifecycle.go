@@ -1,0 +1,133 @@
+package schema
+
+import (
+	"context"
+	"errors"
+	"fmt"
+
+	"github.com/jackc/pgx/v5"
+)
+
+// published returns the version the stable views of model show, 0 for none.
+func (r Registry) published(ctx context.Context, q Querier, model string) (int, error) {
+	var v int
+	err := q.QueryRow(ctx, "SELECT version FROM "+r.table("publications")+
+		" WHERE name = $1 ORDER BY published_at DESC LIMIT 1", model).Scan(&v)
+	if errors.Is(err, pgx.ErrNoRows) {
+		return 0, nil
+	}
+	return v, err
+}
+
+// Published returns the version the stable views of model show, 0 for none.
+func (r Registry) Published(ctx context.Context, q Querier, model string) (int, error) {
+	v, err := r.published(ctx, q, model)
+	if err != nil {
+		return 0, fmt.Errorf("published version of %s: %w", model, err)
+	}
+	return v, nil
+}
+
+// dropObjects drops the tables of version v.
+func dropObjects(ctx context.Context, tx pgx.Tx, v Version) error {
+	for _, t := range []pgx.Identifier{v.Memberships(), v.Results()} {
+		if _, err := tx.Exec(ctx, "DROP TABLE IF EXISTS "+t.Sanitize()); err != nil {
+			return fmt.Errorf("drop %s: %w", t.Sanitize(), err)
+		}
+	}
+	return nil
+}
+
+// Prune drops the result tables of the ready versions of model older than
+// its keep newest ready ones, never the published version, and marks them
+// pruned. It returns the versions pruned.
+func (r Registry) Prune(ctx context.Context, tx pgx.Tx, model string, keep int) ([]int, error) {
+	if keep < 1 {
+		panic("schema: Prune needs keep >= 1")
+	}
+	pub, err := r.published(ctx, tx, model)
+	if err != nil {
+		return nil, fmt.Errorf("prune %s: %w", model, err)
+	}
+	rows, err := tx.Query(ctx, "SELECT version FROM "+r.table("models")+
+		" WHERE name = $1 AND status = 'ready' ORDER BY version DESC OFFSET $2 FOR UPDATE", model, keep)
+	if err != nil {
+		return nil, fmt.Errorf("prune %s: %w", model, err)
+	}
+	old, err := pgx.CollectRows(rows, pgx.RowTo[int])
+	if err != nil {
+		return nil, fmt.Errorf("prune %s: %w", model, err)
+	}
+	var pruned []int
+	for _, n := range old {
+		if n == pub {
+			continue
+		}
+		v := Version{Schema: r.Schema, Model: model, N: n}
+		if err := dropObjects(ctx, tx, v); err != nil {
+			return nil, err
+		}
+		if _, err := tx.Exec(ctx, "UPDATE "+r.table("models")+" SET status = 'pruned' WHERE name = $1 AND version = $2", model, n); err != nil {
+			return nil, fmt.Errorf("prune %s: %w", v, err)
+		}
+		pruned = append(pruned, n)
+	}
+	return pruned, nil
+}
+
+// Drop removes version v: its tables and its registry rows. The published
+// version cannot be dropped; publish another one first.
+func (r Registry) Drop(ctx context.Context, tx pgx.Tx, v Version) error {
+	var status string
+	err := tx.QueryRow(ctx, "SELECT status FROM "+r.table("models")+" WHERE name = $1 AND version = $2 FOR UPDATE", v.Model, v.N).Scan(&status)
+	if errors.Is(err, pgx.ErrNoRows) {
+		return fmt.Errorf("%w: %s", ErrNoModel, v)
+	}
+	if err != nil {
+		return fmt.Errorf("drop %s: %w", v, err)
+	}
+	pub, err := r.published(ctx, tx, v.Model)
+	if err != nil {
+		return fmt.Errorf("drop %s: %w", v, err)
+	}
+	if pub == v.N {
+		return fmt.Errorf("drop %s: it is the published version; publish another version first", v)
+	}
+	if err := dropObjects(ctx, tx, v); err != nil {
+		return err
+	}
+	if _, err := tx.Exec(ctx, "DELETE FROM "+r.table("models")+" WHERE name = $1 AND version = $2", v.Model, v.N); err != nil {
+		return fmt.Errorf("drop %s: %w", v, err)
+	}
+	return nil
+}
+
+// DropModel removes every version of model, its stable views and its
+// registry rows.
+func (r Registry) DropModel(ctx context.Context, tx pgx.Tx, model string) error {
+	rows, err := tx.Query(ctx, "SELECT version FROM "+r.table("models")+" WHERE name = $1 FOR UPDATE", model)
+	if err != nil {
+		return fmt.Errorf("drop %s: %w", model, err)
+	}
+	versions, err := pgx.CollectRows(rows, pgx.RowTo[int])
+	if err != nil {
+		return fmt.Errorf("drop %s: %w", model, err)
+	}
+	if len(versions) == 0 {
+		return fmt.Errorf("%w: %s", ErrNoModel, model)
+	}
+	for _, view := range []pgx.Identifier{MembershipsView(r.Schema, model), View(r.Schema, model)} {
+		if _, err := tx.Exec(ctx, "DROP VIEW IF EXISTS "+view.Sanitize()); err != nil {
+			return fmt.Errorf("drop %s: %w", view.Sanitize(), err)
+		}
+	}
+	for _, n := range versions {
+		if err := dropObjects(ctx, tx, Version{Schema: r.Schema, Model: model, N: n}); err != nil {
+			return err
+		}
+	}
+	if _, err := tx.Exec(ctx, "DELETE FROM "+r.table("models")+" WHERE name = $1", model); err != nil {
+		return fmt.Errorf("drop %s: %w", model, err)
+	}
+	return nil
+}
