@@ -37,7 +37,7 @@ func (d *dataset) featureNames() []string {
 
 // readDataset runs the user's query inside a READ ONLY, REPEATABLE READ
 // transaction and reads its key and features with a binary COPY.
-func readDataset(ctx context.Context, conn *pgx.Conn, query, key string, features []string, missing dbio.Missing, chunkRows int) (*dataset, error) {
+func readDataset(ctx context.Context, e *env, conn *pgx.Conn, query, key string, features []string, missing dbio.Missing, chunkRows int) (*dataset, error) {
 	tx, err := conn.BeginTx(ctx, pgx.TxOptions{IsoLevel: pgx.RepeatableRead, AccessMode: pgx.ReadOnly})
 	if err != nil {
 		return nil, fmt.Errorf("begin read: %w", err)
@@ -56,6 +56,9 @@ func readDataset(ctx context.Context, conn *pgx.Conn, query, key string, feature
 	}
 	ds := &dataset{key: kc, features: fcs}
 	names := ds.featureNames()
+	if err := checkpoint(ctx, e, phaseRead); err != nil {
+		return nil, err
+	}
 	r := dbio.NewReader(ctx, conn.PgConn(), dbio.CopySQL(query, kc.Name, names), len(fcs), dbio.ReaderConfig{
 		ChunkRows: chunkRows, Missing: missing, KeyType: kc.TypeOID, KeyName: kc.Name, Features: names,
 	})
@@ -117,7 +120,7 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 		return nil, err
 	}
 	defer r.Close(context.WithoutCancel(ctx))
-	ds, err := readDataset(ctx, r, s.query, s.key, s.features, s.missingPolicy(), s.chunkRows)
+	ds, err := readDataset(ctx, e, r, s.query, s.key, s.features, s.missingPolicy(), s.chunkRows)
 	if err != nil {
 		return nil, err
 	}
@@ -164,6 +167,9 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	}()
 	v := schema.Version{Schema: e.schema, Model: s.name, N: m.Version}
 	e.logf("fitting %s with %s, k=%d", v, s.method, s.k)
+	if err := checkpoint(ctx, e, phaseFit); err != nil {
+		return nil, err
+	}
 
 	var out *fitted
 	switch s.method {
@@ -182,7 +188,7 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	e.logf("fitted in %.2fs: %d iterations, %s", times["fit"], m.Iterations, m.StopReason)
 
 	m.ResultTable = v.Results().Sanitize()
-	if err := writeVersion(ctx, w, reg, v, m, ds, out, !s.noPublish); err != nil {
+	if err := writeVersion(ctx, e, w, reg, v, m, ds, out, !s.noPublish); err != nil {
 		return nil, err
 	}
 	written = true
@@ -259,7 +265,7 @@ type fitted struct {
 // writeVersion creates v's result tables, loads them with COPY, records the
 // model and publishes it, all in one transaction: a failure or a kill at
 // any point leaves nothing visible.
-func writeVersion(ctx context.Context, conn *pgx.Conn, reg schema.Registry, v schema.Version, m *schema.Model, ds *dataset, out *fitted, publish bool) error {
+func writeVersion(ctx context.Context, e *env, conn *pgx.Conn, reg schema.Registry, v schema.Version, m *schema.Model, ds *dataset, out *fitted, publish bool) error {
 	tx, err := conn.Begin(ctx)
 	if err != nil {
 		return fmt.Errorf("write %s: %w", v, err)
@@ -269,9 +275,17 @@ func writeVersion(ctx context.Context, conn *pgx.Conn, reg schema.Registry, v sc
 	if _, err := tx.Exec(ctx, schema.ResultsDDL(v, key, ds.key.TypeName)); err != nil {
 		return fmt.Errorf("create %s: %w", v.Results().Sanitize(), err)
 	}
+	if err := checkpoint(ctx, e, phaseWrite); err != nil {
+		return err
+	}
 	cols := append([]string{key}, schema.ResultColumns...)
 	i, n := 0, ds.n()
 	_, err = dbio.CopyIn(ctx, conn.PgConn(), v.Results(), cols, func(enc *dbio.Encoder) (bool, error) {
+		if i > 0 && i == min(n, 1024) {
+			if err := checkpoint(ctx, e, phaseCopy); err != nil {
+				return false, err
+			}
+		}
 		for end := min(i+1024, n); i < end; i++ {
 			enc.Begin(5)
 			enc.Raw(ds.keys.At(i))
@@ -314,6 +328,9 @@ func writeVersion(ctx context.Context, conn *pgx.Conn, reg schema.Registry, v sc
 		if err := reg.Publish(ctx, tx, v, out.memberships != nil); err != nil {
 			return err
 		}
+	}
+	if err := checkpoint(ctx, e, phasePublish); err != nil {
+		return err
 	}
 	if err := tx.Commit(ctx); err != nil {
 		return fmt.Errorf("commit %s: %w", v, err)
