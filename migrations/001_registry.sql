@@ -48,6 +48,7 @@ CREATE TABLE components (
     size     bigint   NOT NULL,
     weight   float8   NOT NULL,
     center   float8[] NOT NULL, -- original feature units
+    fitted_center float8[] NOT NULL, -- the same in the units the fit used (after scaling); scoring uses these
     PRIMARY KEY (name, version, cluster),
     FOREIGN KEY (name, version) REFERENCES models ON DELETE CASCADE
 );

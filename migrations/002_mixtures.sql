@@ -11,4 +11,6 @@ ALTER TABLE models
     ADD COLUMN events           text[];
 
 -- d×d, row-major, original feature units, whatever the covariance structure.
-ALTER TABLE components ADD COLUMN covariance float8[];
+ALTER TABLE components
+    ADD COLUMN covariance        float8[],
+    ADD COLUMN fitted_covariance float8[]; -- the same in the units the fit used

@@ -60,6 +60,16 @@ type Component struct {
 	Weight     float64
 	Center     []float64 // original units
 	Covariance []float64 // d×d row-major, original units; nil for k-means
+
+	// The same parameters in the units the fit used, after scaling:
+	// scoring uses these, so that it repeats the fit's arithmetic exactly.
+	FittedCenter     []float64
+	FittedCovariance []float64
+
+	// Renumbering against the previously published version.
+	FittedOrder    int      // the number by descending size, before renumbering
+	MatchedCluster *int     // the counterpart's number, nil when none
+	MatchCost      *float64 // cost of the pair
 }
 
 // Registry is the set of registry tables in one schema.
@@ -155,14 +165,19 @@ func (r Registry) Finish(ctx context.Context, tx pgx.Tx, m *Model, comps []Compo
 	}
 	rows := make([][]any, len(comps))
 	for i, c := range comps {
-		var cov any
+		var cov, fcov any
 		if c.Covariance != nil {
-			cov = c.Covariance
+			cov, fcov = c.Covariance, c.FittedCovariance
 		}
-		rows[i] = []any{m.Name, m.Version, c.Cluster, c.Size, c.Weight, c.Center, cov}
+		order := c.FittedOrder
+		if order == 0 {
+			order = c.Cluster
+		}
+		rows[i] = []any{m.Name, m.Version, c.Cluster, c.Size, c.Weight, c.Center, c.FittedCenter, cov, fcov, order, c.MatchedCluster, c.MatchCost}
 	}
 	_, err = tx.CopyFrom(ctx, pgx.Identifier{r.Schema, "components"},
-		[]string{"name", "version", "cluster", "size", "weight", "center", "covariance"}, pgx.CopyFromRows(rows))
+		[]string{"name", "version", "cluster", "size", "weight", "center", "fitted_center", "covariance", "fitted_covariance",
+			"fitted_order", "matched_cluster", "match_cost"}, pgx.CopyFromRows(rows))
 	if err != nil {
 		return fmt.Errorf("record components of %s@%d: %w", m.Name, m.Version, err)
 	}
@@ -294,14 +309,15 @@ func (r Registry) Model(ctx context.Context, q Querier, name string, version int
 	if err != nil {
 		return nil, nil, fmt.Errorf("read model %s: %w", name, err)
 	}
-	rows, err := q.Query(ctx, "SELECT cluster, size, weight, center, covariance FROM "+r.table("components")+
+	rows, err := q.Query(ctx, "SELECT cluster, size, weight, center, covariance, fitted_center, fitted_covariance, fitted_order, matched_cluster, match_cost FROM "+r.table("components")+
 		" WHERE name = $1 AND version = $2 ORDER BY cluster", m.Name, m.Version)
 	if err != nil {
 		return nil, nil, fmt.Errorf("read components of %s@%d: %w", m.Name, m.Version, err)
 	}
 	comps, err := pgx.CollectRows(rows, func(row pgx.CollectableRow) (Component, error) {
 		var c Component
-		err := row.Scan(&c.Cluster, &c.Size, &c.Weight, &c.Center, &c.Covariance)
+		err := row.Scan(&c.Cluster, &c.Size, &c.Weight, &c.Center, &c.Covariance, &c.FittedCenter, &c.FittedCovariance,
+			&c.FittedOrder, &c.MatchedCluster, &c.MatchCost)
 		return c, err
 	})
 	if err != nil {

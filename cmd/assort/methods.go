@@ -36,6 +36,7 @@ func fitKMeans(ctx context.Context, s *fitSpec, src *fit.Dense, sc fit.Scaling, 
 		sc.Invert(c, res.Centers[j*d:(j+1)*d])
 		out.components = append(out.components, schema.Component{
 			Cluster: j + 1, Size: sizes[j], Weight: float64(sizes[j]) / float64(n), Center: c,
+			FittedCenter: res.Centers[j*d : (j+1)*d],
 		})
 	}
 	return out, nil
@@ -78,6 +79,7 @@ func fitMixture(ctx context.Context, s *fitSpec, src *fit.Dense, sc fit.Scaling,
 		out.components = append(out.components, schema.Component{
 			Cluster: j + 1, Size: sizes[j], Weight: res.Weights[j],
 			Center: means[j*d : (j+1)*d], Covariance: covs[j*d*d : (j+1)*d*d],
+			FittedCenter: res.Means[j*d : (j+1)*d], FittedCovariance: res.Covs[j*d*d : (j+1)*d*d],
 		})
 	}
 	return out, nil
