@@ -151,12 +151,12 @@ func (r Registry) Finish(ctx context.Context, tx pgx.Tx, m *Model, comps []Compo
 		rows_read = $6, rows_used = $7, rows_skipped = $8, inertia = $9,
 		iterations = $10, converged = $11, stop_reason = $12, result_table = $13,
 		log_likelihood = $14, bic = $15, aic = $16, params = $17, events = $18,
-		finished_at = clock_timestamp()
+		k = $19, finished_at = clock_timestamp()
 		WHERE name = $1 AND version = $2 AND status = 'running'`,
 		m.Name, m.Version, m.Algorithm, m.Center, m.Spread,
 		m.RowsRead, m.RowsUsed, m.RowsSkipped, m.Inertia,
 		m.Iterations, m.Converged, m.StopReason, m.ResultTable,
-		m.LogLikelihood, m.BIC, m.AIC, nullZero(float64(m.Params), m.Method == "gmm"), m.Events)
+		m.LogLikelihood, m.BIC, m.AIC, nullZero(float64(m.Params), m.Method == "gmm"), m.Events, m.K)
 	if err != nil {
 		return fmt.Errorf("record %s@%d: %w", m.Name, m.Version, err)
 	}

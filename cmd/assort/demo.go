@@ -3,6 +3,7 @@ package main
 import (
 	"context"
 	"fmt"
+	"strconv"
 	"strings"
 	"text/tabwriter"
 
@@ -56,10 +57,13 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 
 	query := "SELECT source_id, g_r, r_i, i_z FROM " + demoSchema + ".sources WHERE r_mag < 21.5"
 	fmt.Fprintf(e.stdout, "$ assort fit colours --query '%s' --key source_id --k 4 --seed 7\n", query)
-	res, err := fitJob(ctx, e, &fitSpec{
-		name: "colours", query: query, key: "source_id", method: "kmeans", k: 4, seed: 7,
-		scale: "none", missing: "fail",
-	})
+	quiet := "--quiet=" + strconv.FormatBool(e.quiet)
+	spec, err := parseFit(e, []string{"colours", "--query", query, "--key", "source_id", "--k", "4", "--seed", "7",
+		"-d", e.db, "--schema", e.schema, quiet})
+	if err != nil {
+		return err
+	}
+	res, err := fitJob(ctx, e, spec)
 	if err != nil {
 		return err
 	}

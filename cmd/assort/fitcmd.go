@@ -8,6 +8,7 @@ import (
 	"time"
 
 	"assort/dbio"
+	"assort/fit"
 	"assort/schema"
 )
 
@@ -18,7 +19,9 @@ type fitSpec struct {
 	key       string
 	features  []string
 	method    string
-	k         int
+	kText     string
+	ks        fit.KRange
+	criterion string
 	seed      uint64
 	restarts  int
 	maxIter   int
@@ -43,13 +46,27 @@ type fitSpec struct {
 const fitSynopsis = "assort fit NAME --query SQL --key COLUMN --k K [flags]"
 
 func runFit(ctx context.Context, e *env, args []string) error {
-	var s fitSpec
+	s, err := parseFit(e, args)
+	if err != nil {
+		return err
+	}
+	res, err := withRetries(ctx, e, s.retries, func() (*summary, error) { return fitJob(ctx, e, s) })
+	if err != nil {
+		return err
+	}
+	return report(e, s.json, res)
+}
+
+// parseFit parses and checks fit's command line.
+func parseFit(e *env, args []string) (*fitSpec, error) {
+	s := &fitSpec{}
 	fs := e.flagSet("fit", fitSynopsis)
 	fs.StringVar(&s.query, "query", "", "SQL query returning the key and the feature columns (required)")
 	fs.StringVar(&s.key, "key", "", "column that identifies a row; its type is kept (required)")
 	fs.StringSliceVar(&s.features, "features", nil, "feature columns, comma-separated (default: every column but the key)")
 	fs.StringVar(&s.method, "method", "kmeans", "kmeans or gmm (Gaussian mixture)")
-	fs.IntVar(&s.k, "k", 0, "number of clusters (required)")
+	fs.StringVar(&s.kText, "k", "", "number of clusters (required): 6, a range 2:12, or a list 3,5,8; with several, --criterion chooses")
+	fs.StringVar(&s.criterion, "criterion", "bic", "choice among several k: bic, aic, icl (gmm) or silhouette (kmeans)")
 	fs.Uint64Var(&s.seed, "seed", 1, "seed of every random choice; the same seed gives the same result")
 	fs.IntVar(&s.restarts, "restarts", 0, "independent starts, the best kept (default 10 for kmeans, 4 for gmm)")
 	fs.IntVar(&s.maxIter, "max-iter", 0, "iteration limit per start (default 300 for kmeans, 200 for gmm)")
@@ -67,20 +84,16 @@ func runFit(ctx context.Context, e *env, args []string) error {
 	fs.IntVar(&s.retries, "retries", 0, "after a lost connection or server restart, run the whole job again up to this many times, with backoff")
 	fs.BoolVar(&s.noPublish, "no-publish", false, "leave the new version ready but keep the stable views on the published one")
 	if err := e.parse(fs, args); err != nil {
-		return err
+		return nil, err
 	}
 	if fs.NArg() != 1 {
-		return usagef("fit takes one model name, got %d arguments", fs.NArg())
+		return nil, usagef("fit takes one model name, got %d arguments", fs.NArg())
 	}
 	s.name = fs.Arg(0)
 	if err := s.check(fs.Changed); err != nil {
-		return err
+		return nil, err
 	}
-	res, err := withRetries(ctx, e, s.retries, func() (*summary, error) { return fitJob(ctx, e, &s) })
-	if err != nil {
-		return err
-	}
-	return report(e, s.json, res)
+	return s, nil
 }
 
 // check validates flags before anything touches the database.
@@ -93,8 +106,8 @@ func (s *fitSpec) check(changed func(string) bool) error {
 		return usagef("--query is required")
 	case s.key == "":
 		return usagef("--key is required")
-	case s.k < 1:
-		return usagef("--k must be at least 1, got %d", s.k)
+	case s.kText == "":
+		return usagef("--k is required")
 	case s.restarts < 0:
 		return usagef("--restarts must not be negative, got %d", s.restarts)
 	case s.maxIter < 0:
@@ -109,6 +122,24 @@ func (s *fitSpec) check(changed func(string) bool) error {
 		return usagef("--wait must not be negative, got %s", s.wait)
 	case s.retries < 0:
 		return usagef("--retries must not be negative, got %d", s.retries)
+	}
+	ks, err := fit.ParseKRange(s.kText)
+	if err != nil {
+		return usagef("--k: %v", err)
+	}
+	s.ks = ks
+	switch s.criterion {
+	case "bic", "aic":
+	case "icl":
+		if s.method != "gmm" {
+			return usagef("--criterion icl applies to --method gmm only")
+		}
+	case "silhouette":
+		if s.method != "kmeans" {
+			return usagef("--criterion silhouette applies to --method kmeans only")
+		}
+	default:
+		return usagef("--criterion must be bic, aic, icl or silhouette, got %q", s.criterion)
 	}
 	switch s.method {
 	case "kmeans":

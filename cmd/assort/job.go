@@ -4,7 +4,6 @@ import (
 	"context"
 	"errors"
 	"fmt"
-	"slices"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -133,8 +132,11 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 		}
 		return nil, errors.New("no rows: the query returned nothing")
 	}
-	if s.k > n {
-		return nil, fmt.Errorf("--k %d is more than the %d usable rows", s.k, n)
+	if top := s.ks[len(s.ks)-1]; top > n {
+		if len(s.ks) == 1 {
+			return nil, fmt.Errorf("--k %d is more than the %d usable rows", top, n)
+		}
+		return nil, fmt.Errorf("--k %s: the largest candidate, %d, is more than the %d usable rows", s.kText, top, n)
 	}
 
 	src := fit.NewDense(ds.x, d)
@@ -144,7 +146,7 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	}
 
 	m := &schema.Model{
-		Name: s.name, Method: s.method, K: s.k, Features: ds.featureNames(),
+		Name: s.name, Method: s.method, K: s.ks[0], Features: ds.featureNames(),
 		KeyColumn: ds.key.Name, KeyType: ds.key.TypeName, Query: s.query, Scale: s.scale,
 		Center: scaling.Center, Spread: scaling.Spread,
 		Seed: int64(s.seed), Restarts: s.restarts, MaxIter: s.maxIter, Tol: s.tol,
@@ -166,26 +168,39 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 		}
 	}()
 	v := schema.Version{Schema: e.schema, Model: s.name, N: m.Version}
-	e.logf("fitting %s with %s, k=%d", v, s.method, s.k)
+	e.logf("fitting %s with %s, k=%s", v, s.method, s.kText)
 	if err := checkpoint(ctx, e, phaseFit); err != nil {
 		return nil, err
 	}
-
-	var out *fitted
-	switch s.method {
-	case "kmeans":
-		out, err = fitKMeans(ctx, s, src, scaling, m)
-	case "gmm":
-		out, err = fitMixture(ctx, s, src, scaling, m)
+	cands := make([]*candidate, 0, len(s.ks))
+	for _, k := range s.ks {
+		c, err := fitCandidate(ctx, s, src, k)
+		if err != nil {
+			if len(s.ks) > 1 {
+				return nil, fmt.Errorf("k=%d: %w", k, err)
+			}
+			return nil, err
+		}
+		if it, conv, _ := c.iterations(); !conv {
+			e.warnf("%s did not converge with k=%d in %d iterations; the result is recorded with converged = false", v, k, it)
+		}
+		if len(s.ks) > 1 {
+			val, _, _ := c.criterion(s.criterion)
+			e.logf("k=%d: %s %.6g", k, s.criterion, val)
+		}
+		cands = append(cands, c)
 	}
-	if err != nil {
-		return nil, err
+	best := choose(cands, s.criterion)
+	if best < 0 {
+		return nil, fmt.Errorf("no candidate has a finite %s; every fit is degenerate (rows identical within clusters?)", s.criterion)
 	}
+	chosen := cands[best]
+	chosen.record(m, s)
+	out := chosen.score(src, scaling, s.floor)
 	mark("fit")
-	if !m.Converged {
-		e.warnf("%s did not converge in %d iterations; the result is recorded with converged = false", v, m.Iterations)
-	}
-	e.logf("fitted in %.2fs: %d iterations, %s", times["fit"], m.Iterations, m.StopReason)
+	e.logf("fitted in %.2fs: k=%d chosen by %s; %d iterations, %s", times["fit"], chosen.k, s.criterion, m.Iterations, m.StopReason)
+	out.candidates = candidateRows(cands, best)
+	out.criterion = s.criterion
 
 	m.ResultTable = v.Results().Sanitize()
 	if err := writeVersion(ctx, e, w, reg, v, m, ds, out, !s.noPublish); err != nil {
@@ -260,6 +275,9 @@ type fitted struct {
 	// memberships[i*k+j] is row i's probability of cluster j+1; nil for k-means.
 	memberships []float64
 	floor       float64
+
+	candidates []schema.Candidate
+	criterion  string
 }
 
 // writeVersion creates v's result tables, loads them with COPY, records the
@@ -324,6 +342,9 @@ func writeVersion(ctx context.Context, e *env, conn *pgx.Conn, reg schema.Regist
 	if err := reg.Finish(ctx, tx, m, out.components); err != nil {
 		return err
 	}
+	if err := reg.RecordCandidates(ctx, tx, m, out.criterion, out.candidates); err != nil {
+		return err
+	}
 	if publish {
 		if err := reg.Publish(ctx, tx, v, out.memberships != nil); err != nil {
 			return err
@@ -386,8 +407,16 @@ func keyError(key string, err error) error {
 	return fmt.Errorf("key column %q: %w", key, err)
 }
 
-// orderComponents is used by both methods: sort output rows of a
-// components list by cluster number.
-func orderComponents(cs []schema.Component) {
-	slices.SortFunc(cs, func(a, b schema.Component) int { return a.Cluster - b.Cluster })
+// candidateRows turns fitted candidates into registry rows.
+func candidateRows(cs []*candidate, chosen int) []schema.Candidate {
+	rows := make([]schema.Candidate, len(cs))
+	for i, c := range cs {
+		it, conv, _ := c.iterations()
+		rows[i] = schema.Candidate{
+			K: c.k, Inertia: c.inertia, LogLikelihood: c.logL, Params: c.params,
+			BIC: c.bic, AIC: c.aic, ICL: c.icl, Silhouette: c.silhouette,
+			Iterations: it, Converged: conv, Chosen: i == chosen,
+		}
+	}
+	return rows
 }
