@@ -125,4 +125,3 @@ func runDrop(ctx context.Context, e *env, args []string) error {
 	e.logf("dropped %s", fs.Arg(0))
 	return nil
 }
-
