@@ -33,6 +33,7 @@ func commands() []command {
 		{"publish", "point a model's stable views at one of its versions", runPublish},
 		{"prune", "drop the result tables of old unpublished versions", runPrune},
 		{"drop", "drop one version of a model, or the whole model", runDrop},
+		{"compare", "compare a version's clusters with a known labelling or with another version", runCompare},
 		{"models", "list model versions", runModels},
 		{"show", "show one model version and its clusters", runShow},
 		{"demo", "run the whole job on invented data in a throwaway PostgreSQL", runDemo},

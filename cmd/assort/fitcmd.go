@@ -41,6 +41,7 @@ type fitSpec struct {
 	wait      time.Duration
 	retries   int
 	noPublish bool
+	labels    string
 }
 
 const fitSynopsis = "assort fit NAME --query SQL --key COLUMN --k K [flags]"
@@ -82,6 +83,7 @@ func parseFit(e *env, args []string) (*fitSpec, error) {
 	fs.BoolVar(&s.json, "json", false, "print a JSON summary on stdout")
 	fs.DurationVar(&s.wait, "wait", 0, "wait this long for another run of the same model to finish (default: exit at once with status 3)")
 	fs.IntVar(&s.retries, "retries", 0, "after a lost connection or server restart, run the whole job again up to this many times, with backoff")
+	fs.StringVar(&s.labels, "labels", "", "after fitting, compare the clusters with this labelling: a query returning (key, label)")
 	fs.BoolVar(&s.noPublish, "no-publish", false, "leave the new version ready but keep the stable views on the published one")
 	if err := e.parse(fs, args); err != nil {
 		return nil, err
@@ -221,7 +223,10 @@ type summary struct {
 	Memberships string             `json:"memberships_table,omitempty"`
 	Published   bool               `json:"published"`
 	Clusters    []schema.Component `json:"clusters"`
+	Criterion   string             `json:"criterion"`
+	Candidates  []schema.Candidate `json:"candidates"`
 	Seconds     map[string]float64 `json:"seconds"`
+	Comparison  *schema.Comparison `json:"comparison,omitempty"`
 }
 
 func report(e *env, asJSON bool, s *summary) error {
@@ -249,5 +254,17 @@ func report(e *env, asJSON bool, s *summary) error {
 	if s.Memberships != "" {
 		fmt.Fprintf(e.stdout, "  memberships in %s\n", s.Memberships)
 	}
-	return writeComponents(e.stdout, s.Features, s.Clusters)
+	if err := writeComponents(e.stdout, s.Features, s.Clusters); err != nil {
+		return err
+	}
+	if len(s.Candidates) > 1 {
+		if err := writeCandidates(e.stdout, s.Criterion, s.Candidates); err != nil {
+			return err
+		}
+	}
+	if s.Comparison != nil {
+		fmt.Fprintln(e.stdout)
+		return writeComparison(e.stdout, s.Comparison)
+	}
+	return nil
 }

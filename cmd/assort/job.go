@@ -124,6 +124,11 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 		return nil, err
 	}
 	mark("read")
+	if s.labels != "" {
+		if err := checkLabels(ctx, r, s.labels); err != nil {
+			return nil, err
+		}
+	}
 	n, d := ds.n(), len(ds.features)
 	e.logf("read %d rows of %d features (%d skipped) in %.2fs", ds.read, d, ds.skipped, times["read"])
 	if n == 0 {
@@ -221,9 +226,17 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 		Iterations: m.Iterations, Converged: m.Converged, Stop: m.StopReason,
 		Table: m.ResultTable, View: schema.View(e.schema, m.Name).Sanitize(),
 		Published: !s.noPublish, Clusters: out.components, Seconds: times,
+		Criterion: out.criterion, Candidates: out.candidates,
 	}
 	if out.memberships != nil {
 		sum.Memberships = v.Memberships().Sanitize()
+	}
+	if s.labels != "" {
+		c, err := compare(ctx, w, reg, m.Name, m.Version, s.labels, 0)
+		if err != nil {
+			return nil, fmt.Errorf("%s was written; comparing it with the labels failed: %w", v, err)
+		}
+		sum.Comparison = c
 	}
 	return sum, nil
 }

@@ -94,13 +94,25 @@ func runShow(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
+	criterion, cands, err := schema.Registry{Schema: e.schema}.Candidates(ctx, conn, m.Name, m.Version)
+	if err != nil {
+		return err
+	}
 	if *asJSON {
 		return writeJSON(e.stdout, struct {
 			*schema.Model
 			Components []schema.Component
-		}{m, comps})
+			Criterion  string             `json:",omitempty"`
+			Candidates []schema.Candidate `json:",omitempty"`
+		}{m, comps, criterion, cands})
 	}
-	return showModel(e.stdout, m, comps)
+	if err := showModel(e.stdout, m, comps); err != nil {
+		return err
+	}
+	if len(cands) > 1 {
+		return writeCandidates(e.stdout, criterion, cands)
+	}
+	return nil
 }
 
 func showModel(w io.Writer, m *schema.Model, comps []schema.Component) error {
