@@ -5,6 +5,7 @@ package main
 
 import (
 	"context"
+	"fmt"
 	"os"
 	"os/signal"
 	"syscall"
@@ -20,6 +21,8 @@ func main() {
 		select {
 		case s := <-sig:
 			code = signalStatus(s)
+			// The error above reads "context canceled"; say why.
+			fmt.Fprintf(os.Stderr, "assort: interrupted by %s; nothing was published\n", signalName(s))
 		default:
 		}
 	}
@@ -33,4 +36,15 @@ func signalStatus(s os.Signal) int {
 		return 128 + int(n)
 	}
 	return exitFailure
+}
+
+// signalName is the conventional name of s, as in kill -l.
+func signalName(s os.Signal) string {
+	switch s {
+	case syscall.SIGINT:
+		return "SIGINT"
+	case syscall.SIGTERM:
+		return "SIGTERM"
+	}
+	return s.String()
 }

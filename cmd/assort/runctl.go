@@ -81,3 +81,34 @@ func withRetries[T any](ctx context.Context, e *env, retries int, job func() (T,
 		}
 	}
 }
+
+// abandonLimit bounds the clean-up of a failed run, which may have to open
+// a connection of its own.
+const abandonLimit = 10 * time.Second
+
+// abandonRun removes the 'running' registry row of version of model after
+// the run failed while alive (schema.Registry.Abandon). It uses the run's
+// writer connection w when that still works; when w is gone (the server
+// ended the session, or pgx closed it because ctx was cancelled in the
+// middle of a statement, as on SIGINT during the COPY), it opens a short
+// connection of its own. That connection does not hold the model's lock,
+// and needs not: Abandon deletes only a row still 'running', and a run that
+// took the lock since then has either marked the row failed already
+// (schema.Registry.Recover) or finds it gone. ctx may be cancelled: the
+// clean-up runs without it, bounded by abandonLimit.
+func abandonRun(ctx context.Context, e *env, w *pgx.Conn, reg schema.Registry, model string, version int) error {
+	ctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), abandonLimit)
+	defer cancel()
+	if !w.IsClosed() {
+		err := reg.Abandon(ctx, w, model, version)
+		if err == nil || !w.IsClosed() {
+			return err
+		}
+	}
+	c, err := e.connect(ctx, "fit "+model)
+	if err != nil {
+		return err
+	}
+	defer c.Close(ctx)
+	return reg.Abandon(ctx, c, model, version)
+}
