@@ -56,11 +56,14 @@ func Latest() int { return len(Migrations()) }
 // lockKey is the advisory lock that serialises migrations of one schema.
 func lockKey(schema string) string { return "assort migrate " + schema }
 
-// bootstrap creates the schema and the table of applied migrations.
+// createSchema creates the registry schema.
+func createSchema(schema string) string {
+	return "CREATE SCHEMA IF NOT EXISTS " + pgx.Identifier{schema}.Sanitize() + ";\n"
+}
+
+// bootstrap creates the table of applied migrations.
 func bootstrap(schema string) string {
-	s := pgx.Identifier{schema}.Sanitize()
-	return "CREATE SCHEMA IF NOT EXISTS " + s + ";\n" +
-		"CREATE TABLE IF NOT EXISTS " + pgx.Identifier{schema, "migrations"}.Sanitize() + ` (
+	return "CREATE TABLE IF NOT EXISTS " + pgx.Identifier{schema, "migrations"}.Sanitize() + ` (
     version     integer     PRIMARY KEY,
     name        text        NOT NULL,
     applied_at  timestamptz NOT NULL DEFAULT clock_timestamp(),
@@ -75,6 +78,7 @@ func bootstrap(schema string) string {
 func Script(schema string) string {
 	var b strings.Builder
 	b.WriteString("-- assort registry in schema " + pgx.Identifier{schema}.Sanitize() + "; apply in one transaction (psql -1 -f FILE).\n")
+	b.WriteString(createSchema(schema))
 	b.WriteString(bootstrap(schema))
 	b.WriteString("SET LOCAL search_path TO " + pgx.Identifier{schema}.Sanitize() + ";\n")
 	for _, m := range Migrations() {
@@ -100,6 +104,17 @@ func Migrate(ctx context.Context, conn *pgx.Conn, schema string) (applied []Migr
 	}()
 	if _, err := tx.Exec(ctx, "SELECT pg_advisory_xact_lock(hashtextextended($1, 0))", lockKey(schema)); err != nil {
 		return nil, fmt.Errorf("migrate: lock: %w", err)
+	}
+	// CREATE SCHEMA IF NOT EXISTS needs CREATE on the database even when
+	// the schema exists; a role that owns a schema its DBA made has not.
+	var exists bool
+	if err := tx.QueryRow(ctx, "SELECT EXISTS (SELECT 1 FROM pg_namespace WHERE nspname = $1)", schema).Scan(&exists); err != nil {
+		return nil, fmt.Errorf("migrate: %w", err)
+	}
+	if !exists {
+		if _, err := tx.Exec(ctx, createSchema(schema)); err != nil {
+			return nil, fmt.Errorf("migrate: create schema %s: %w", schema, err)
+		}
 	}
 	if _, err := tx.Exec(ctx, bootstrap(schema)); err != nil {
 		return nil, fmt.Errorf("migrate: create schema %s: %w", schema, err)

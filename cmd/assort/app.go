@@ -30,6 +30,7 @@ func commands() []command {
 	return []command{
 		{"migrate", "create or upgrade the registry", runMigrate},
 		{"fit", "fit a model to a query's rows and publish a new version", runFit},
+		{"score", "assign new rows with a stored version, without refitting", runScore},
 		{"publish", "point a model's stable views at one of its versions", runPublish},
 		{"prune", "drop the result tables of old unpublished versions", runPrune},
 		{"drop", "drop one version of a model, or the whole model", runDrop},

@@ -34,9 +34,23 @@ func (d *dataset) featureNames() []string {
 	return names
 }
 
+// readSpec says what to read.
+type readSpec struct {
+	query     string
+	key       string
+	features  []string // empty: every column but the key
+	missing   dbio.Missing
+	chunkRows int
+	// scoring, when set, is the model whose rows are scored: the query
+	// must return its key, of the same type, and its features, and nothing
+	// else.
+	scoring *schema.Model
+}
+
 // readDataset runs the user's query inside a READ ONLY, REPEATABLE READ
 // transaction and reads its key and features with a binary COPY.
-func readDataset(ctx context.Context, e *env, conn *pgx.Conn, query, key string, features []string, missing dbio.Missing, chunkRows int) (*dataset, error) {
+func readDataset(ctx context.Context, e *env, conn *pgx.Conn, rs readSpec) (*dataset, error) {
+	query, key, features, missing, chunkRows := rs.query, rs.key, rs.features, rs.missing, rs.chunkRows
 	tx, err := conn.BeginTx(ctx, pgx.TxOptions{IsoLevel: pgx.RepeatableRead, AccessMode: pgx.ReadOnly})
 	if err != nil {
 		return nil, fmt.Errorf("begin read: %w", err)
@@ -52,6 +66,11 @@ func readDataset(ctx context.Context, e *env, conn *pgx.Conn, query, key string,
 	}
 	if err := schema.CheckKeyColumn(kc.Name); err != nil {
 		return nil, err
+	}
+	if rs.scoring != nil {
+		if err := matchesModel(rs.scoring, cols, kc); err != nil {
+			return nil, err
+		}
 	}
 	ds := &dataset{key: kc, features: fcs}
 	names := ds.featureNames()
@@ -76,7 +95,9 @@ func readDataset(ctx context.Context, e *env, conn *pgx.Conn, query, key string,
 		return nil, fmt.Errorf("read: %w", err)
 	}
 	ds.read, ds.skipped = r.RowsRead(), r.RowsSkipped()
-	if err := tx.Commit(ctx); err != nil {
+	// Roll back, never commit: READ ONLY does not stop everything (large
+	// objects, notifications), and nothing the query did should persist.
+	if err := tx.Rollback(ctx); err != nil {
 		return nil, fmt.Errorf("end read: %w", err)
 	}
 	return ds, nil
@@ -119,7 +140,7 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 		return nil, err
 	}
 	defer r.Close(context.WithoutCancel(ctx))
-	ds, err := readDataset(ctx, e, r, s.query, s.key, s.features, s.missingPolicy(), s.chunkRows)
+	ds, err := readDataset(ctx, e, r, readSpec{query: s.query, key: s.key, features: s.features, missing: s.missingPolicy(), chunkRows: s.chunkRows})
 	if err != nil {
 		return nil, err
 	}
@@ -167,7 +188,7 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	written := false
 	defer func() {
 		if !written {
-			if err := reg.Abandon(context.WithoutCancel(ctx), w, m.Name, m.Version); err != nil {
+			if err := abandonRun(ctx, e, w, reg, m.Name, m.Version); err != nil {
 				e.warnf("could not remove the registry row of %s@%d: %v", m.Name, m.Version, err)
 			}
 		}
@@ -206,6 +227,11 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	e.logf("fitted in %.2fs: k=%d chosen by %s; %d iterations, %s", times["fit"], chosen.k, s.criterion, m.Iterations, m.StopReason)
 	out.candidates = candidateRows(cands, best)
 	out.criterion = s.criterion
+	if !s.noRenumber {
+		if err := renumberAgainstPublished(ctx, e, w, reg, m, out, scaling); err != nil {
+			return nil, err
+		}
+	}
 
 	m.ResultTable = v.Results().Sanitize()
 	if err := writeVersion(ctx, e, w, reg, v, m, ds, out, !s.noPublish); err != nil {
@@ -239,6 +265,27 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 		sum.Comparison = c
 	}
 	return sum, nil
+}
+
+// renumberAgainstPublished matches the new clusters to the published
+// version's, when there is one with the same features, and records the
+// matching in m.
+func renumberAgainstPublished(ctx context.Context, e *env, conn *pgx.Conn, reg schema.Registry, m *schema.Model, out *fitted, sc fit.Scaling) error {
+	prev, comps, err := reg.Model(ctx, conn, m.Name, 0)
+	if errors.Is(err, schema.ErrNoModel) {
+		return nil
+	}
+	if err != nil {
+		return err
+	}
+	if err := sameFeatures(prev.Features, m.Features); err != nil {
+		e.warnf("cluster numbers not matched to %s@%d: %v", prev.Name, prev.Version, err)
+		return nil
+	}
+	cost := renumber(out, comps, sc)
+	m.RenumberedAgainst, m.RenumberBasis, m.RenumberCost = &prev.Version, "centres", &cost
+	e.logf("cluster numbers matched to %s@%d by centres (total squared distance %.6g)", prev.Name, prev.Version, cost)
+	return nil
 }
 
 // scaleFeatures centres and scales the rows in place as --scale asks and
@@ -288,126 +335,12 @@ type fitted struct {
 	// memberships[i*k+j] is row i's probability of cluster j+1; nil for k-means.
 	memberships []float64
 	floor       float64
+	// numbers[j] is the published number of the j-th fitted component
+	// (memberships columns are in fitted order); nil means j+1.
+	numbers []int32
 
 	candidates []schema.Candidate
 	criterion  string
-}
-
-// writeVersion creates v's result tables, loads them with COPY, records the
-// model and publishes it, all in one transaction: a failure or a kill at
-// any point leaves nothing visible.
-func writeVersion(ctx context.Context, e *env, conn *pgx.Conn, reg schema.Registry, v schema.Version, m *schema.Model, ds *dataset, out *fitted, publish bool) error {
-	tx, err := conn.Begin(ctx)
-	if err != nil {
-		return fmt.Errorf("write %s: %w", v, err)
-	}
-	defer tx.Rollback(context.WithoutCancel(ctx))
-	key := ds.key.Name
-	if _, err := tx.Exec(ctx, schema.ResultsDDL(v, key, ds.key.TypeName)); err != nil {
-		return fmt.Errorf("create %s: %w", v.Results().Sanitize(), err)
-	}
-	if err := checkpoint(ctx, e, phaseWrite); err != nil {
-		return err
-	}
-	cols := append([]string{key}, schema.ResultColumns...)
-	i, n := 0, ds.n()
-	_, err = dbio.CopyIn(ctx, conn.PgConn(), v.Results(), cols, func(enc *dbio.Encoder) (bool, error) {
-		if i > 0 && i == min(n, 1024) {
-			if err := checkpoint(ctx, e, phaseCopy); err != nil {
-				return false, err
-			}
-		}
-		for end := min(i+1024, n); i < end; i++ {
-			enc.Begin(5)
-			enc.Raw(ds.keys.At(i))
-			enc.Int4(out.cluster[i])
-			if out.probability != nil {
-				enc.Float8(out.probability[i])
-			} else {
-				enc.Float8(1)
-			}
-			enc.Float8(out.distance[i])
-			if out.logDensity != nil {
-				enc.Float8(out.logDensity[i])
-			} else {
-				enc.Null()
-			}
-		}
-		return i < n, nil
-	})
-	if err != nil {
-		return fmt.Errorf("copy into %s: %w", v.Results().Sanitize(), err)
-	}
-	if _, err := tx.Exec(ctx, schema.ResultsKeyDDL(v, key)); err != nil {
-		return keyError(key, err)
-	}
-	if _, err := tx.Exec(ctx, schema.CommentDDL(v.Results(), fmt.Sprintf("assort results of %s (%s, k=%d)", v, m.Method, m.K))); err != nil {
-		return err
-	}
-	if out.memberships != nil {
-		if err := writeMemberships(ctx, tx, conn, v, ds, out); err != nil {
-			return err
-		}
-	}
-	if _, err := tx.Exec(ctx, "ANALYZE "+v.Results().Sanitize()); err != nil {
-		return fmt.Errorf("analyze %s: %w", v.Results().Sanitize(), err)
-	}
-	if err := reg.Finish(ctx, tx, m, out.components); err != nil {
-		return err
-	}
-	if err := reg.RecordCandidates(ctx, tx, m, out.criterion, out.candidates); err != nil {
-		return err
-	}
-	if publish {
-		if err := reg.Publish(ctx, tx, v, out.memberships != nil); err != nil {
-			return err
-		}
-	}
-	if err := checkpoint(ctx, e, phasePublish); err != nil {
-		return err
-	}
-	if err := tx.Commit(ctx); err != nil {
-		return fmt.Errorf("commit %s: %w", v, err)
-	}
-	return nil
-}
-
-// writeMemberships loads the long-form memberships table of a mixture.
-func writeMemberships(ctx context.Context, tx pgx.Tx, conn *pgx.Conn, v schema.Version, ds *dataset, out *fitted) error {
-	key := ds.key.Name
-	if _, err := tx.Exec(ctx, schema.MembershipsDDL(v, key, ds.key.TypeName)); err != nil {
-		return fmt.Errorf("create %s: %w", v.Memberships().Sanitize(), err)
-	}
-	k := len(out.components)
-	i, n := 0, ds.n()
-	cols := append([]string{key}, schema.MembershipColumns...)
-	_, err := dbio.CopyIn(ctx, conn.PgConn(), v.Memberships(), cols, func(enc *dbio.Encoder) (bool, error) {
-		for end := min(i+1024, n); i < end; i++ {
-			for j, p := range out.memberships[i*k : (i+1)*k] {
-				if p < out.floor || p == 0 {
-					continue
-				}
-				enc.Begin(3)
-				enc.Raw(ds.keys.At(i))
-				enc.Int4(int32(j + 1))
-				enc.Float8(p)
-			}
-		}
-		return i < n, nil
-	})
-	if err != nil {
-		return fmt.Errorf("copy into %s: %w", v.Memberships().Sanitize(), err)
-	}
-	if _, err := tx.Exec(ctx, schema.MembershipsKeyDDL(v, key)); err != nil {
-		return fmt.Errorf("index %s: %w", v.Memberships().Sanitize(), err)
-	}
-	if _, err := tx.Exec(ctx, schema.CommentDDL(v.Memberships(), "assort membership probabilities of "+v.String())); err != nil {
-		return err
-	}
-	if _, err := tx.Exec(ctx, "ANALYZE "+v.Memberships().Sanitize()); err != nil {
-		return fmt.Errorf("analyze %s: %w", v.Memberships().Sanitize(), err)
-	}
-	return nil
 }
 
 // keyError explains a failure to build the primary key: usually a
@@ -418,6 +351,14 @@ func keyError(key string, err error) error {
 		return fmt.Errorf("key column %q is not unique: %s", key, pgErr.Detail)
 	}
 	return fmt.Errorf("key column %q: %w", key, err)
+}
+
+// number is the cluster number of the j-th fitted component.
+func (f *fitted) number(j int) int32 {
+	if f.numbers == nil {
+		return int32(j + 1)
+	}
+	return f.numbers[j]
 }
 
 // candidateRows turns fitted candidates into registry rows.

@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"fmt"
 	"math"
 
 	"assort/fit"
@@ -182,4 +183,24 @@ func choose(cs []*candidate, criterion string) int {
 		}
 	}
 	return best
+}
+
+// restoreMixture rebuilds a stored mixture from its fitted-space
+// parameters, components in cluster order.
+func restoreMixture(m *schema.Model, comps []schema.Component) (*fit.MixtureResult, error) {
+	d := len(m.Features)
+	k := len(comps)
+	weights := make([]float64, k)
+	means := make([]float64, 0, k*d)
+	covs := make([]float64, 0, k*d*d)
+	for j, c := range comps {
+		weights[j] = c.Weight
+		means = append(means, c.FittedCenter...)
+		covs = append(covs, c.FittedCovariance...)
+	}
+	mx, err := fit.RestoreMixture(fit.Covariance(m.Covariance), d, weights, means, covs)
+	if err != nil {
+		return nil, fmt.Errorf("%s@%d: %w", m.Name, m.Version, err)
+	}
+	return mx, nil
 }

@@ -1,0 +1,224 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"slices"
+	"strconv"
+	"strings"
+	"time"
+
+	"assort/dbio"
+	"assort/fit"
+	"assort/schema"
+)
+
+// scoreSpec is everything `assort score` was asked to do.
+type scoreSpec struct {
+	name      string
+	version   int // 0: the published version
+	query     string
+	mode      string
+	missing   string
+	chunkRows int
+	wait      time.Duration
+	retries   int
+	json      bool
+}
+
+func runScore(ctx context.Context, e *env, args []string) error {
+	var s scoreSpec
+	fs := e.flagSet("score", "assort score NAME[@VERSION] --query SQL [--mode upsert|replace]")
+	fs.StringVar(&s.query, "query", "", "SQL query returning the model's key and feature columns, by name (required)")
+	fs.StringVar(&s.mode, "mode", "upsert", "upsert: add new keys and update changed rows; replace: the version's tables become exactly this query's rows")
+	fs.StringVar(&s.missing, "missing", "fail", "a row with a NULL, NaN or infinite feature: fail, or skip")
+	fs.IntVar(&s.chunkRows, "chunk-rows", 0, "rows per chunk read from the server (default 65536)")
+	fs.DurationVar(&s.wait, "wait", 0, "wait this long for another run of the same model to finish (default: exit at once with status 3)")
+	fs.IntVar(&s.retries, "retries", 0, "after a lost connection or server restart, run the whole job again up to this many times, with backoff")
+	fs.BoolVar(&s.json, "json", false, "print a JSON summary on stdout")
+	if err := e.parse(fs, args); err != nil {
+		return err
+	}
+	if fs.NArg() != 1 {
+		return usagef("score takes one model reference, NAME or NAME@VERSION")
+	}
+	name, version, err := schema.ParseRef(fs.Arg(0))
+	if err != nil {
+		return usagef("%v", err)
+	}
+	s.name, s.version = name, version
+	switch {
+	case strings.TrimSpace(s.query) == "":
+		return usagef("--query is required")
+	case s.mode != "upsert" && s.mode != "replace":
+		return usagef("--mode must be upsert or replace, got %q", s.mode)
+	case s.missing != "fail" && s.missing != "skip":
+		return usagef("--missing must be fail or skip, got %q", s.missing)
+	case s.chunkRows < 0 || s.wait < 0 || s.retries < 0:
+		return usagef("--chunk-rows, --wait and --retries must not be negative")
+	}
+	res, err := withRetries(ctx, e, s.retries, func() (*scoreSummary, error) { return scoreJob(ctx, e, &s) })
+	if err != nil {
+		return err
+	}
+	if s.json {
+		return writeJSON(e.stdout, res)
+	}
+	fmt.Fprintf(e.stdout, "%s@%d: scored %d rows (%d read, %d skipped) into %s, mode %s\n",
+		res.Model, res.Version, res.RowsUsed, res.RowsRead, res.RowsSkipped, res.Table, res.Mode)
+	return nil
+}
+
+type scoreSummary struct {
+	Model       string `json:"model"`
+	Version     int    `json:"version"`
+	Mode        string `json:"mode"`
+	RowsRead    int64  `json:"rows_read"`
+	RowsUsed    int64  `json:"rows_used"`
+	RowsSkipped int64  `json:"rows_skipped"`
+	Table       string `json:"table"`
+}
+
+// scoreJob assigns a query's rows with a stored version and merges them
+// into that version's tables in one transaction.
+func scoreJob(ctx context.Context, e *env, s *scoreSpec) (*scoreSummary, error) {
+	reg := schema.Registry{Schema: e.schema}
+	w, err := e.connect(ctx, "score "+s.name)
+	if err != nil {
+		return nil, err
+	}
+	defer w.Close(context.WithoutCancel(ctx))
+	if err := schema.Check(ctx, w, e.schema); err != nil {
+		return nil, err
+	}
+	if err := lockModel(ctx, w, reg, s.name, s.wait); err != nil {
+		return nil, err
+	}
+	defer reg.Unlock(context.WithoutCancel(ctx), w, s.name)
+	m, comps, err := reg.Model(ctx, w, s.name, s.version)
+	if err != nil {
+		return nil, err
+	}
+	if m.Status != "ready" {
+		return nil, fmt.Errorf("%s@%d is %s; only a ready version can score rows", m.Name, m.Version, m.Status)
+	}
+	v := schema.Version{Schema: e.schema, Model: m.Name, N: m.Version}
+
+	r, err := e.connect(ctx, "read "+s.name)
+	if err != nil {
+		return nil, err
+	}
+	defer r.Close(context.WithoutCancel(ctx))
+	missing := dbio.MissingFail
+	if s.missing == "skip" {
+		missing = dbio.MissingSkip
+	}
+	ds, err := readDataset(ctx, e, r, readSpec{query: s.query, key: m.KeyColumn, features: m.Features, missing: missing, chunkRows: s.chunkRows, scoring: m})
+	if err != nil {
+		return nil, err
+	}
+	e.logf("read %d rows (%d skipped) to score with %s", ds.read, ds.skipped, v)
+	out, err := scoreStored(m, comps, ds)
+	if err != nil {
+		return nil, err
+	}
+
+	tx, err := w.Begin(ctx)
+	if err != nil {
+		return nil, err
+	}
+	defer tx.Rollback(context.WithoutCancel(ctx))
+	withMem := m.Method == "gmm"
+	for _, ddl := range schema.StagingDDL(v, withMem) {
+		if _, err := tx.Exec(ctx, ddl); err != nil {
+			return nil, fmt.Errorf("stage: %w", err)
+		}
+	}
+	if err := copyResults(ctx, e, w, schema.StagingResults, ds, out); err != nil {
+		return nil, err
+	}
+	if _, err := tx.Exec(ctx, schema.StagingKeyDDL(m.KeyColumn)); err != nil {
+		return nil, keyError(m.KeyColumn, err)
+	}
+	if withMem {
+		if err := copyMemberships(ctx, w, schema.StagingMemberships, ds, out); err != nil {
+			return nil, err
+		}
+	}
+	for _, stmt := range schema.MergeSQL(v, m.KeyColumn, s.mode, withMem) {
+		if _, err := tx.Exec(ctx, stmt); err != nil {
+			return nil, fmt.Errorf("merge into %s: %w", v.Results().Sanitize(), err)
+		}
+	}
+	if err := reg.RecordScoring(ctx, tx, v, schema.Scoring{Mode: s.mode, Query: s.query, RowsRead: ds.read, RowsUsed: int64(ds.n()), Skipped: ds.skipped}); err != nil {
+		return nil, err
+	}
+	if err := tx.Commit(ctx); err != nil {
+		return nil, fmt.Errorf("commit scoring of %s: %w", v, err)
+	}
+	return &scoreSummary{Model: m.Name, Version: m.Version, Mode: s.mode, RowsRead: ds.read, RowsUsed: int64(ds.n()),
+		RowsSkipped: ds.skipped, Table: v.Results().Sanitize()}, nil
+}
+
+// matchesModel checks that a scoring query returns the model's key, of the
+// model's type, and its features, and no other column.
+func matchesModel(m *schema.Model, cols []dbio.Column, key dbio.Column) error {
+	if key.TypeName != m.KeyType {
+		return fmt.Errorf("key column %q is %s here but %s in %s@%d; cast it in the query", key.Name, key.TypeName, m.KeyType, m.Name, m.Version)
+	}
+	for _, c := range cols {
+		if c.Name != m.KeyColumn && !slices.Contains(m.Features, c.Name) {
+			return fmt.Errorf("column %q is neither the key nor a feature of %s@%d (features: %s); remove it from the query",
+				c.Name, m.Name, m.Version, quoted(m.Features))
+		}
+	}
+	return nil
+}
+
+func quoted(names []string) string {
+	q := make([]string, len(names))
+	for i, n := range names {
+		q[i] = strconv.Quote(n)
+	}
+	return strings.Join(q, ", ")
+}
+
+// scoreStored applies a stored version to rows: the version's own scaling,
+// then its fitted-space parameters, exactly as the fit scored its rows.
+func scoreStored(m *schema.Model, comps []schema.Component, ds *dataset) (*fitted, error) {
+	d := len(m.Features)
+	sc := fit.Scaling{Method: m.Scale, Center: m.Center, Spread: m.Spread}
+	if m.Scale != "none" {
+		sc.Apply(ds.x, ds.x)
+	}
+	src := fit.NewDense(ds.x, d)
+	numbers := make([]int32, len(comps))
+	for j, c := range comps {
+		numbers[j] = int32(c.Cluster)
+	}
+	var out *fitted
+	switch m.Method {
+	case "kmeans":
+		centers := make([]float64, 0, len(comps)*d)
+		for _, c := range comps {
+			centers = append(centers, c.FittedCenter...)
+		}
+		out = scoreKMeans(&fit.KMeansResult{K: len(comps), D: d, Centers: centers}, src, sc)
+	case "gmm":
+		mx, err := restoreMixture(m, comps)
+		if err != nil {
+			return nil, err
+		}
+		out = scoreMixture(mx, src, sc, m.MembershipFloor)
+	default:
+		return nil, errors.New("unknown method " + m.Method)
+	}
+	// scoreKMeans and scoreMixture number clusters by position; positions
+	// here are the stored clusters in cluster order.
+	for i, c := range out.cluster {
+		out.cluster[i] = numbers[c-1]
+	}
+	out.numbers = numbers
+	return out, nil
+}

@@ -1,0 +1,87 @@
+package schema
+
+import (
+	"context"
+	"fmt"
+	"strings"
+
+	"github.com/jackc/pgx/v5"
+)
+
+// Staging tables hold a scoring run's rows until they are merged into the
+// version's tables in the same transaction. They are temporary and dropped
+// at commit, so a failed or killed run leaves nothing behind.
+var (
+	StagingResults     = pgx.Identifier{"assort_scored"}
+	StagingMemberships = pgx.Identifier{"assort_scored_memberships"}
+)
+
+// StagingDDL creates the staging tables for v: like its result table, and
+// like its memberships table when withMemberships.
+func StagingDDL(v Version, withMemberships bool) []string {
+	ddl := []string{fmt.Sprintf("CREATE TEMP TABLE %s (LIKE %s) ON COMMIT DROP", StagingResults.Sanitize(), v.Results().Sanitize())}
+	if withMemberships {
+		ddl = append(ddl, fmt.Sprintf("CREATE TEMP TABLE %s (LIKE %s) ON COMMIT DROP", StagingMemberships.Sanitize(), v.Memberships().Sanitize()))
+	}
+	return ddl
+}
+
+// StagingKeyDDL adds a primary key to the staging results, which fails,
+// naming the key, when the scored rows repeat a key.
+func StagingKeyDDL(key string) string {
+	return fmt.Sprintf("ALTER TABLE %s ADD PRIMARY KEY (%s)", StagingResults.Sanitize(), pgx.Identifier{key}.Sanitize())
+}
+
+// MergeSQL moves the staged rows into v's tables. Mode "upsert" inserts new
+// keys and updates the rows whose results changed; mode "replace" empties
+// the tables first (TRUNCATE, which holds an exclusive lock on them until
+// the transaction commits), so that they hold exactly the staged rows.
+func MergeSQL(v Version, key, mode string, withMemberships bool) []string {
+	res, k := v.Results().Sanitize(), pgx.Identifier{key}.Sanitize()
+	var stmts []string
+	if mode == "replace" {
+		tables := res
+		if withMemberships {
+			tables += ", " + v.Memberships().Sanitize()
+		}
+		stmts = append(stmts, "TRUNCATE "+tables)
+	}
+	sets := make([]string, len(ResultColumns))
+	for i, c := range ResultColumns {
+		sets[i] = fmt.Sprintf("%s = EXCLUDED.%s", c, c)
+	}
+	stmts = append(stmts, fmt.Sprintf(`INSERT INTO %s AS r SELECT * FROM %s
+ON CONFLICT (%s) DO UPDATE SET %s
+WHERE (r.%s) IS DISTINCT FROM (EXCLUDED.%s)`, res, StagingResults.Sanitize(), k, strings.Join(sets, ", "),
+		strings.Join(ResultColumns, ", r."), strings.Join(ResultColumns, ", EXCLUDED.")))
+	if withMemberships {
+		mem := v.Memberships().Sanitize()
+		if mode != "replace" {
+			stmts = append(stmts, fmt.Sprintf("DELETE FROM %s m USING %s s WHERE m.%s = s.%s", mem, StagingResults.Sanitize(), k, k))
+		}
+		stmts = append(stmts, fmt.Sprintf("INSERT INTO %s SELECT * FROM %s", mem, StagingMemberships.Sanitize()))
+	}
+	stmts = append(stmts, "ANALYZE "+res)
+	if withMemberships {
+		stmts = append(stmts, "ANALYZE "+v.Memberships().Sanitize())
+	}
+	return stmts
+}
+
+// Scoring is one run of scoring rows with a stored version.
+type Scoring struct {
+	Mode                        string
+	Query                       string
+	RowsRead, RowsUsed, Skipped int64
+}
+
+// RecordScoring stores a scoring run of v.
+func (r Registry) RecordScoring(ctx context.Context, tx pgx.Tx, v Version, s Scoring) error {
+	_, err := tx.Exec(ctx, "INSERT INTO "+r.table("scorings")+
+		" (name, version, mode, query, rows_read, rows_used, rows_skipped) VALUES ($1, $2, $3, $4, $5, $6, $7)",
+		v.Model, v.N, s.Mode, s.Query, s.RowsRead, s.RowsUsed, s.Skipped)
+	if err != nil {
+		return fmt.Errorf("record scoring of %s: %w", v, err)
+	}
+	return nil
+}
