@@ -31,6 +31,7 @@ fuzz:
 	$(GO) test -run '^$$' -fuzz '^FuzzDecoder$$' -fuzztime $(FUZZTIME) ./dbio/
 	$(GO) test -run '^$$' -fuzz '^FuzzParseKRange$$' -fuzztime $(FUZZTIME) ./fit/
 	$(GO) test -run '^$$' -fuzz '^FuzzValidateModelName$$' -fuzztime $(FUZZTIME) ./schema/
+	$(GO) test -run '^$$' -fuzz '^FuzzParseSize$$' -fuzztime $(FUZZTIME) ./dbio/
 
 bench: setup
 	bash scripts/bench.sh
