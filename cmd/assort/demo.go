@@ -18,6 +18,7 @@ const demoSchema = "lantern"
 func runDemo(ctx context.Context, e *env, args []string) error {
 	fs := e.flagSet("demo", "assort demo [--keep] [-d DB]")
 	keep := fs.Bool("keep", false, "leave the throwaway server running after the demo, until interrupted, and say how to connect")
+	catalogue := fs.String("catalogue-schema", demoSchema, "schema for the invented catalogue (dropped and re-created)")
 	if err := e.parse(fs, args); err != nil {
 		return err
 	}
@@ -47,18 +48,21 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 	defer conn.Close(context.WithoutCancel(ctx))
-	e.logf("loading %d invented sources into %s.sources", demoRows, demoSchema)
-	if err := loadDemo(ctx, conn, demoSchema); err != nil {
+	if err := schema.ValidateSchemaName(*catalogue); err != nil {
+		return usagef("--catalogue-schema: %v", err)
+	}
+	e.logf("loading %d invented sources into %s.sources", demoRows, *catalogue)
+	if err := loadDemo(ctx, conn, *catalogue); err != nil {
 		return err
 	}
 	if _, err := schema.Migrate(ctx, conn, e.schema); err != nil {
 		return err
 	}
 
-	query := "SELECT source_id, g_r, r_i, i_z FROM " + demoSchema + ".sources WHERE r_mag < 21.5"
-	fmt.Fprintf(e.stdout, "$ assort fit colours --query '%s' --key source_id --k 4 --seed 7\n", query)
+	query := "SELECT source_id, g_r, r_i, i_z FROM " + *catalogue + ".sources WHERE r_mag < 21.5"
+	fmt.Fprintf(e.stdout, "$ assort fit colours --query '%s' \\\n    --key source_id --method gmm --k 2:6 --seed 7\n", query)
 	quiet := "--quiet=" + strconv.FormatBool(e.quiet)
-	spec, err := parseFit(e, []string{"colours", "--query", query, "--key", "source_id", "--k", "4", "--seed", "7",
+	spec, err := parseFit(e, []string{"colours", "--query", query, "--key", "source_id", "--method", "gmm", "--k", "2:6", "--seed", "7",
 		"-d", e.db, "--schema", e.schema, quiet})
 	if err != nil {
 		return err
@@ -71,11 +75,22 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 
-	join := `SELECT c.cluster, s.population, count(*) AS sources, round(avg(s.r_mag)::numeric, 2)::float8 AS mean_r_mag
-FROM ` + demoSchema + `.sources s JOIN ` + pgx.Identifier{e.schema, "colours"}.Sanitize() + ` c USING (source_id)
-GROUP BY 1, 2 ORDER BY 1, 3 DESC`
+	join := `SELECT c.cluster, count(*) AS sources, round(avg(c.probability)::numeric, 3)::float8 AS mean_probability,
+       count(*) FILTER (WHERE c.log_density < -2) AS poor_fits, round(avg(s.r_mag)::numeric, 2)::float8 AS mean_r_mag
+FROM ` + *catalogue + `.sources s JOIN ` + pgx.Identifier{e.schema, "colours"}.Sanitize() + ` c USING (source_id)
+GROUP BY 1 ORDER BY 1`
 	fmt.Fprintf(e.stdout, "\nThe results join back to the catalogue with plain SQL:\n\n%s\n\n", indent(join))
-	return printQuery(ctx, e, conn, join)
+	if err := printQuery(ctx, e, conn, join); err != nil {
+		return err
+	}
+
+	labels := "SELECT source_id, population FROM " + *catalogue + ".sources"
+	fmt.Fprintf(e.stdout, "\nThe demo knows the populations it invented, so the clusters can be checked:\n$ assort compare colours --labels '%s'\n\n", labels)
+	c, err := compare(ctx, conn, schema.Registry{Schema: e.schema}, "colours", 0, labels, 0)
+	if err != nil {
+		return err
+	}
+	return writeComparison(e.stdout, c)
 }
 
 // printQuery runs sql and prints its rows as a table.

@@ -20,10 +20,10 @@ type population struct {
 }
 
 var demoPopulations = []population{
-	{"pale halo", 0.40, [3]float64{0.35, 0.12, 0.04}, [3]float64{0.06, 0.05, 0.05}, 0.5},
-	{"ember dwarfs", 0.30, [3]float64{1.45, 0.95, 0.48}, [3]float64{0.08, 0.10, 0.07}, 0.6},
-	{"amber giants", 0.20, [3]float64{0.95, 0.42, 0.22}, [3]float64{0.07, 0.06, 0.05}, 0.4},
-	{"blue knots", 0.10, [3]float64{0.12, -0.05, 0.32}, [3]float64{0.09, 0.08, 0.10}, 0.2},
+	{"pale halo", 0.40, [3]float64{0.40, 0.15, 0.06}, [3]float64{0.12, 0.10, 0.09}, 0.5},
+	{"ember dwarfs", 0.30, [3]float64{1.30, 0.80, 0.40}, [3]float64{0.16, 0.18, 0.12}, 0.6},
+	{"amber giants", 0.20, [3]float64{0.90, 0.40, 0.22}, [3]float64{0.14, 0.12, 0.10}, 0.4},
+	{"blue knots", 0.10, [3]float64{0.15, -0.05, 0.30}, [3]float64{0.12, 0.10, 0.12}, 0.2},
 }
 
 // demoRows is the size of the demo catalogue.
