@@ -7,8 +7,11 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"sync"
+	"time"
 
 	"github.com/jackc/pgx/v5/pgconn"
+	"github.com/jackc/pgx/v5/pgproto3"
 )
 
 // DefaultChunkRows is the number of rows in a Chunk when
@@ -73,20 +76,16 @@ type Chunk struct {
 //	}
 //	if err := r.Err(); err != nil { ... }
 //
-// The COPY runs on its own goroutine, which gathers the server's messages
-// into large buffers; Next decodes them, with no allocation per row.
+// Next receives the server's messages itself, on the caller's goroutine,
+// copies their data once into the Decoder's buffer and decodes it there,
+// with no allocation per row.
 type Reader struct {
-	ctx  context.Context
 	conn *pgconn.PgConn
-	sql  string
 	d    int
 	cfg  ReaderConfig
 
-	pipe *copyOutPipe
-	dec  *Decoder
-	done chan struct{} // closed when the COPY has returned
-	tag  pgconn.CommandTag
-	cerr error // the COPY's error; read only after done is closed
+	out *copyOut
+	dec *Decoder
 
 	chunk   Chunk
 	fields  [][]byte
@@ -101,12 +100,16 @@ type Reader struct {
 
 // NewReader starts copySQL, a `COPY ... TO STDOUT (FORMAT binary)` whose
 // rows are a key and d float8 features (as CopySQL makes), on conn and
-// returns a Reader over its result. conn is busy until the Reader is
-// closed. The caller opens the READ ONLY transaction the COPY runs in; the
-// Reader does not begin one.
+// returns a Reader over its result. The caller opens the READ ONLY
+// transaction the COPY runs in; the Reader does not begin one.
+//
+// conn belongs to the Reader until Close: pgconn does not know that a
+// COPY is running on it, so any other use of conn (or of the pgx.Conn or
+// transaction it belongs to) in between would read the COPY's messages.
 //
 // ctx governs the whole read: when it is cancelled the connection is
-// closed (pgconn's behaviour) and Next fails.
+// closed (as pgconn does for its own calls) and Next fails with ctx's
+// error.
 func NewReader(ctx context.Context, conn *pgconn.PgConn, copySQL string, d int, cfg ReaderConfig) *Reader {
 	if d < 1 {
 		panic(fmt.Sprintf("dbio: NewReader with %d features", d))
@@ -121,21 +124,13 @@ func NewReader(ctx context.Context, conn *pgconn.PgConn, copySQL string, d int, 
 		cfg.ChunkRows = DefaultChunkRows
 	}
 	r := &Reader{
-		ctx:  ctx,
 		conn: conn,
-		sql:  copySQL,
 		d:    d,
 		cfg:  cfg,
-		pipe: newCopyOutPipe(),
-		done: make(chan struct{}),
+		out:  startCopyOut(ctx, conn, copySQL),
 	}
-	r.dec = NewDecoder(r.pipe, DecoderConfig{})
+	r.dec = NewDecoder(r.out, DecoderConfig{})
 	r.chunk.D = d
-	go func() {
-		defer close(r.done)
-		r.tag, r.cerr = conn.CopyTo(ctx, r.pipe, copySQL)
-		r.pipe.closeWrite(r.cerr)
-	}()
 	return r
 }
 
@@ -251,24 +246,20 @@ func (r *Reader) featureName(j int) string {
 
 // finish checks the end of a complete stream against the server's count.
 func (r *Reader) finish() {
-	<-r.done
-	if r.cerr != nil {
-		r.fail(fmt.Errorf("copy out: %w", queryError(r.sql, r.cerr)))
-		return
-	}
-	if n := r.tag.RowsAffected(); n != r.read {
+	if n := r.out.tag.RowsAffected(); n != r.read {
 		r.fail(fmt.Errorf("copy out: the server sent %d rows and reports %d", r.read, n))
 	}
 }
 
 // copyError turns a decoding error into the COPY's own error when the
-// stream ended because the COPY failed.
+// COPY failed: the data then ends early or, for a statement that is not a
+// binary COPY, is not what the Decoder expects.
 func (r *Reader) copyError(err error) error {
 	var cf *copyFailed
-	if errors.As(err, &cf) {
-		return fmt.Errorf("copy out: %w", queryError(r.sql, cf.err))
+	if !errors.As(r.out.err, &cf) && !errors.As(err, &cf) {
+		return err
 	}
-	return err
+	return fmt.Errorf("copy out: %w", queryError(r.out.sql, cf.err))
 }
 
 func (r *Reader) fail(err error) {
@@ -299,135 +290,201 @@ func (r *Reader) RowsSkipped() int64 { return r.skipped }
 func (r *Reader) Close() error {
 	if !r.closed {
 		r.closed = true
-		r.pipe.abandon()
-		select {
-		case <-r.done:
-		default:
-			if r.ctx.Err() == nil {
-				// An error here means the request did not reach the
-				// server; the COPY then runs to its end, discarded.
-				_ = r.conn.CancelRequest(r.ctx)
-			}
-			<-r.done
-		}
+		r.out.abort()
 	}
 	if r.conn.IsClosed() {
-		return fmt.Errorf("close reader: connection lost: %w", r.cerr)
+		return fmt.Errorf("close reader: connection lost: %w", r.out.lostErr)
 	}
 	return nil
 }
 
-// copyFailed carries the COPY's error through the pipe to the decoder and
-// back, so that the Reader reports it rather than a truncated stream.
+// copyFailed carries the COPY's error through the Decoder, so that the
+// Reader reports it rather than a truncated stream.
 type copyFailed struct{ err error }
 
 func (e *copyFailed) Error() string { return e.err.Error() }
 func (e *copyFailed) Unwrap() error { return e.err }
 
-// Buffers of the pipe between the COPY and the decoder. The server sends
-// one protocol message per row, about a hundred bytes for a few features;
-// gathering them into large buffers makes the hand-over between
-// goroutines rare.
-const (
-	pipeBufSize = 256 << 10
-	pipeBuffers = 4
-)
+// copyOut runs a COPY TO STDOUT on a connection and serves the data of
+// its CopyData messages as an io.Reader, receiving the messages on the
+// reading goroutine with pgconn's ReceiveMessage. The protocol (PostgreSQL
+// documentation, "Message Flow", "COPY Operations"): the Query, then
+// CopyOutResponse, CopyData..., CopyDone, CommandComplete and
+// ReadyForQuery, or an ErrorResponse and ReadyForQuery at any point;
+// notices and parameter reports may come in between.
+//
+// The context is watched once for the whole COPY rather than on every
+// message: on cancellation the connection's deadline is set to now, the
+// read under way fails, and the connection is closed.
+type copyOut struct {
+	ctx  context.Context
+	conn *pgconn.PgConn
+	sql  string
 
-// copyOutPipe carries the COPY data from pgconn's CopyTo (an io.Writer
-// called once per protocol message) to the Decoder (an io.Reader) in large
-// buffers. Once the reading side abandons it, writes are discarded so that
-// the COPY can run to its end or to its cancellation without blocking.
-type copyOutPipe struct {
-	full chan []byte
-	free chan []byte
-	stop chan struct{}
+	rest    []byte // unread data of the last CopyData message
+	started bool   // CopyOutResponse received
+	ended   bool   // ReadyForQuery received, or the connection lost
+	tag     pgconn.CommandTag
+	failure error // the server's error, or a misuse found here
+	err     error // what Read returns once rest is empty: io.EOF or a *copyFailed
+	lostErr error // why the connection was lost
 
-	// Writer side.
-	cur     []byte
-	stopped bool
-	err     error // the COPY's error; written before full is closed
-
-	// Reader side.
-	rd   []byte // unread part of held
-	held []byte
+	stopWatch func() bool   // stops the context watch
+	watchDone chan struct{} // closed once a fired watch has set the deadline
 }
 
-func newCopyOutPipe() *copyOutPipe {
-	p := &copyOutPipe{
-		full: make(chan []byte, pipeBuffers),
-		free: make(chan []byte, pipeBuffers),
-		stop: make(chan struct{}),
+func startCopyOut(ctx context.Context, conn *pgconn.PgConn, sql string) *copyOut {
+	o := &copyOut{ctx: ctx, conn: conn, sql: sql, watchDone: make(chan struct{})}
+	switch {
+	case ctx.Err() != nil:
+		o.ended = true
+		o.err = &copyFailed{ctx.Err()}
+		return o
+	case conn.IsClosed():
+		o.ended = true
+		o.err = &copyFailed{errors.New("connection closed")}
+		return o
+	case conn.IsBusy():
+		o.ended = true
+		o.err = &copyFailed{errors.New("connection busy")}
+		return o
 	}
-	for range pipeBuffers {
-		p.free <- make([]byte, 0, pipeBufSize)
+	o.stopWatch = context.AfterFunc(ctx, func() {
+		defer close(o.watchDone)
+		_ = conn.Conn().SetDeadline(time.Now()) // an error means the connection is gone anyway
+	})
+	conn.Frontend().SendQuery(&pgproto3.Query{String: sql})
+	if err := conn.Frontend().Flush(); err != nil {
+		o.lose(fmt.Errorf("send query: %w", err))
 	}
-	return p
+	return o
 }
 
-// Write appends b to the current buffer, handing buffers over as they
-// fill.
-func (p *copyOutPipe) Write(b []byte) (int, error) {
-	n := len(b)
-	for len(b) > 0 && !p.stopped {
-		if p.cur == nil {
-			select {
-			case p.cur = <-p.free:
-			case <-p.stop:
-				p.stopped = true
-				return n, nil
-			}
+// Read copies the COPY's data into p, receiving messages as needed. It
+// returns early, rather than wait for the network, once it has some data.
+func (o *copyOut) Read(p []byte) (int, error) {
+	n := 0
+	for n < len(p) {
+		if len(o.rest) > 0 {
+			k := copy(p[n:], o.rest)
+			o.rest = o.rest[k:]
+			n += k
+			continue
 		}
-		k := copy(p.cur[len(p.cur):cap(p.cur)], b)
-		p.cur = p.cur[:len(p.cur)+k]
-		b = b[k:]
-		if len(p.cur) == cap(p.cur) {
-			p.send()
+		if o.ended || n > 0 && o.conn.Frontend().ReadBufferLen() == 0 {
+			break
 		}
+		o.step()
 	}
-	return n, nil
+	if n > 0 {
+		return n, nil
+	}
+	return 0, o.err
 }
 
-func (p *copyOutPipe) send() {
-	select {
-	case p.full <- p.cur:
-	case <-p.stop:
-		p.stopped = true
-	}
-	p.cur = nil
-}
-
-// closeWrite hands over the last buffer and ends the data with err (nil
-// for a clean end).
-func (p *copyOutPipe) closeWrite(err error) {
-	if len(p.cur) > 0 && !p.stopped {
-		p.send()
-	}
+// step receives one message and acts on it.
+func (o *copyOut) step() {
+	// context.Background makes pgconn skip its own watch of a context,
+	// which costs a lock and an allocation per message, that is per row;
+	// o.ctx is watched instead once for the whole COPY (see startCopyOut).
+	msg, err := o.conn.ReceiveMessage(context.Background())
 	if err != nil {
-		p.err = &copyFailed{err}
+		o.lose(err)
+		return
 	}
-	close(p.full)
+	switch m := msg.(type) {
+	case *pgproto3.CopyData:
+		o.rest = m.Data
+	case *pgproto3.CopyOutResponse:
+		o.started = true
+		if m.OverallFormat != 1 {
+			o.failure = errors.New("the COPY sends text, not binary")
+		}
+	case *pgproto3.CopyInResponse, *pgproto3.CopyBothResponse:
+		o.failure = errors.New("the statement is not a COPY TO STDOUT")
+		o.conn.Frontend().Send(&pgproto3.CopyFail{Message: "not a COPY TO STDOUT"})
+		if err := o.conn.Frontend().Flush(); err != nil {
+			o.lose(err)
+		}
+	case *pgproto3.CommandComplete:
+		o.tag = pgconn.NewCommandTag(string(m.CommandTag))
+	case *pgproto3.ErrorResponse:
+		if o.failure == nil {
+			o.failure = pgconn.ErrorResponseToPgError(m)
+		}
+	case *pgproto3.ReadyForQuery:
+		o.end()
+		switch {
+		case o.failure != nil:
+			o.err = &copyFailed{o.failure}
+		case !o.started:
+			o.err = &copyFailed{errors.New("the statement is not a COPY TO STDOUT")}
+		default:
+			o.err = io.EOF
+		}
+	}
 }
 
-// Read implements io.Reader for the Decoder.
-func (p *copyOutPipe) Read(b []byte) (int, error) {
-	for len(p.rd) == 0 {
-		if p.held != nil {
-			p.free <- p.held[:0] // never blocks: there are only pipeBuffers buffers
-			p.held = nil
-		}
-		buf, ok := <-p.full
-		if !ok {
-			if p.err != nil {
-				return 0, p.err
+// end stops the context watch; a watch that fired has set a deadline,
+// which is cleared now that the connection is free.
+func (o *copyOut) end() {
+	o.ended = true
+	if o.stopWatch != nil && !o.stopWatch() {
+		<-o.watchDone
+		_ = o.conn.Conn().SetDeadline(time.Time{}) // the connection is closed if this fails
+	}
+}
+
+// lose ends the COPY on a broken connection, closing it.
+func (o *copyOut) lose(err error) {
+	if o.ctx.Err() != nil {
+		err = o.ctx.Err()
+	}
+	o.rest = nil
+	o.lostErr = err
+	o.err = &copyFailed{err}
+	o.end()
+	ctx, cancel := context.WithTimeout(context.WithoutCancel(o.ctx), time.Second)
+	defer cancel()
+	_ = o.conn.Close(ctx) // the connection is unusable whatever Close says
+}
+
+// abort ends a COPY still running: it discards messages until the
+// connection is free, asking the server meanwhile to cancel the COPY.
+// The request is repeated because one that reaches the server before the
+// COPY has begun (the statement still on its way) finds the session idle
+// and is ignored, as it is once the COPY has ended; so no cancellation can
+// hit a later statement. Each request returns only once the server has
+// passed it on, and the last one has returned before abort does.
+func (o *copyOut) abort() {
+	if o.ended {
+		return
+	}
+	stop := make(chan struct{})
+	var wg sync.WaitGroup
+	wg.Go(func() {
+		wait := 50 * time.Millisecond
+		for {
+			// An error means the request did not reach the server; the
+			// next round tries again.
+			_ = o.conn.CancelRequest(o.ctx)
+			t := time.NewTimer(wait)
+			select {
+			case <-stop:
+				t.Stop()
+				return
+			case <-o.ctx.Done():
+				t.Stop()
+				return
+			case <-t.C:
 			}
-			return 0, io.EOF
+			wait = min(2*wait, time.Second)
 		}
-		p.held, p.rd = buf, buf
+	})
+	for !o.ended {
+		o.rest = nil
+		o.step()
 	}
-	n := copy(b, p.rd)
-	p.rd = p.rd[n:]
-	return n, nil
+	close(stop)
+	wg.Wait()
 }
-
-// abandon tells the writer side to discard the rest.
-func (p *copyOutPipe) abandon() { close(p.stop) }

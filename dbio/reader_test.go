@@ -236,6 +236,9 @@ func TestReaderMissing(t *testing.T) {
 func TestReaderFailures(t *testing.T) {
 	ctx := t.Context()
 	conn := dbtest.Conn(t)
+	_, schema := dbtest.Schema(t)
+	sink := pgx.Identifier{schema, "sink"}.Sanitize()
+	mustExec(t, conn, "CREATE TABLE "+sink+" (id bigint, x float8)")
 	cases := []struct {
 		name       string
 		copySQL    string
@@ -244,6 +247,7 @@ func TestReaderFailures(t *testing.T) {
 		wantChunks int
 		wantErr    string
 		code       string
+		writable   bool // run outside a READ ONLY transaction
 	}{
 		{
 			name:       "division by zero at row 600",
@@ -264,6 +268,25 @@ func TestReaderFailures(t *testing.T) {
 			code: "42846",
 		},
 		{
+			name:    "not a COPY",
+			copySQL: "SELECT 1 AS id, 2.0 AS x",
+			d:       1,
+			wantErr: "read chunk 1: copy out: the statement is not a COPY TO STDOUT",
+		},
+		{
+			name:    "a COPY in text format",
+			copySQL: "COPY (SELECT 1 AS id, 2.0 AS x) TO STDOUT",
+			d:       1,
+			wantErr: "read chunk 1: copy out: the COPY sends text, not binary",
+		},
+		{
+			name:     "a COPY FROM",
+			copySQL:  "COPY " + sink + " FROM STDIN (FORMAT binary)",
+			d:        1,
+			writable: true,
+			wantErr:  "read chunk 1: copy out: the statement is not a COPY TO STDOUT",
+		},
+		{
 			name:    "row wider than said",
 			copySQL: CopySQL("SELECT 1 AS id, 2 AS a, 3 AS b", "id", []string{"a", "b"}),
 			d:       1,
@@ -272,7 +295,10 @@ func TestReaderFailures(t *testing.T) {
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
-			tx := readOnly(t, conn)
+			var tx pgx.Tx
+			if !c.writable {
+				tx = readOnly(t, conn)
+			}
 			r := NewReader(ctx, conn.PgConn(), c.copySQL, c.d, ReaderConfig{ChunkRows: c.chunkRows})
 			chunks := 0
 			for r.Next() {
@@ -294,22 +320,24 @@ func TestReaderFailures(t *testing.T) {
 			if err := r.Close(); err != nil {
 				t.Fatalf("Close: %v", err)
 			}
-			if err := tx.Rollback(ctx); err != nil {
-				t.Fatalf("rollback: %v", err)
+			if tx != nil {
+				if err := tx.Rollback(ctx); err != nil {
+					t.Fatalf("rollback: %v", err)
+				}
 			}
-			var one int
-			if err := conn.QueryRow(ctx, "SELECT 1").Scan(&one); err != nil || one != 1 {
-				t.Fatalf("connection not usable: %v", err)
+			var rows int
+			if err := conn.QueryRow(ctx, "SELECT count(*) FROM "+sink).Scan(&rows); err != nil || rows != 0 {
+				t.Fatalf("connection not usable, or rows copied in: %d, %v", rows, err)
 			}
 		})
 	}
 }
 
-// hugeCopy sends 5·10^7 rows, starting at once: a function scan in FROM
+// hugeCopy sends 10^7 rows, starting at once: a function scan in FROM
 // gathers all its rows before the first one leaves, so two small series
 // are crossed instead.
 var hugeCopy = CopySQL(`SELECT (a - 1) * 100000 + b AS id, b::float8 AS x
-	FROM generate_series(1, 500) a, generate_series(1, 100000) b`, "id", []string{"x"})
+	FROM generate_series(1, 100) a, generate_series(1, 100000) b`, "id", []string{"x"})
 
 // TestReaderEarlyClose checks that closing a Reader in the middle of a
 // large COPY, or before reading anything, ends the COPY and leaves the
@@ -386,9 +414,11 @@ func TestReaderContextCancel(t *testing.T) {
 
 // BenchmarkRead measures a Reader over 10^6 rows of a bigint key and 8
 // float8 features and, in the same benchmark and on the same server, psql
-// running the same COPY into /dev/null. The ratio is ours over psql's
-// rate. psql's time includes starting the process and connecting (a few
-// ms).
+// running the same COPY into /dev/null, the two alternating. ratio is our
+// rate over psql's, from the total times; ratio-best the same from each
+// one's fastest run, which is less disturbed by other load on the
+// machine. psql's time includes starting the process and connecting (a
+// few ms).
 func BenchmarkRead(b *testing.B) {
 	const n = 1_000_000
 	ctx := b.Context()
@@ -404,6 +434,7 @@ func BenchmarkRead(b *testing.B) {
 	copySQL := CopySQL("SELECT * FROM "+t, "id", features)
 	psql := psqlPath(b)
 	var ours, theirs time.Duration
+	bestOurs, bestTheirs := time.Duration(math.MaxInt64), time.Duration(math.MaxInt64)
 	var sum float64
 	b.ResetTimer()
 	for range b.N {
@@ -428,7 +459,9 @@ func BenchmarkRead(b *testing.B) {
 		if err := tx.Commit(ctx); err != nil {
 			b.Fatal(err)
 		}
-		ours += time.Since(start)
+		took := time.Since(start)
+		ours += took
+		bestOurs = min(bestOurs, took)
 		b.StopTimer()
 		cmd := exec.CommandContext(ctx, psql, "-X", "-q", "-v", "ON_ERROR_STOP=1", "-d", url, "-c", copySQL)
 		var stderr bytes.Buffer
@@ -437,7 +470,9 @@ func BenchmarkRead(b *testing.B) {
 		if err := cmd.Run(); err != nil {
 			b.Fatalf("psql: %v: %s", err, stderr.Bytes())
 		}
-		theirs += time.Since(start)
+		took = time.Since(start)
+		theirs += took
+		bestTheirs = min(bestTheirs, took)
 		b.StartTimer()
 	}
 	b.StopTimer()
@@ -449,6 +484,7 @@ func BenchmarkRead(b *testing.B) {
 	b.ReportMetric(rate, "rows/s")
 	b.ReportMetric(prate, "psql-rows/s")
 	b.ReportMetric(rate/prate, "ratio")
+	b.ReportMetric(bestTheirs.Seconds()/bestOurs.Seconds(), "ratio-best")
 }
 
 // memReader is a Reader over an in-memory stream, as if a COPY of n rows
@@ -457,9 +493,7 @@ func memReader(stream []byte, n, d int, cfg ReaderConfig) *Reader {
 	if cfg.ChunkRows == 0 {
 		cfg.ChunkRows = DefaultChunkRows
 	}
-	done := make(chan struct{})
-	close(done)
-	r := &Reader{d: d, cfg: cfg, done: done, tag: pgconn.NewCommandTag("COPY " + strconv.Itoa(n))}
+	r := &Reader{d: d, cfg: cfg, out: &copyOut{ended: true, tag: pgconn.NewCommandTag("COPY " + strconv.Itoa(n))}}
 	r.dec = NewDecoder(bytes.NewReader(stream), DecoderConfig{})
 	r.chunk.D = d
 	return r

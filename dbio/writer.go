@@ -139,10 +139,12 @@ var errProducerPanicked = errors.New("row producer panicked")
 // whether there are more; an error from next ends the COPY (the server
 // stores nothing) and is returned.
 //
-// next runs on the caller's goroutine; the connection sends on another, so
-// building rows and sending them overlap. Rows go out in pieces of about
-// 1 MiB: memory does not grow with their number. Run CopyIn inside a
-// transaction to make the rows appear together with the rest of a write.
+// next runs on the caller's goroutine, so that a panic in it reaches the
+// caller (after the COPY has been failed and the connection freed);
+// pgconn's CopyFrom sends from another goroutine, through an io.Pipe. Rows
+// are handed over in pieces of about 1 MiB: memory does not grow with
+// their number. Run CopyIn inside a transaction to make the rows appear
+// together with the rest of a write.
 func CopyIn(ctx context.Context, conn *pgconn.PgConn, table pgx.Identifier, columns []string, next func(e *Encoder) (more bool, err error)) (int64, error) {
 	if len(columns) == 0 {
 		panic("dbio: CopyIn with no columns")
