@@ -14,6 +14,11 @@
 //	}
 //	if err := r.Err(); err != nil { ... }
 //
+// A Reader owns its connection from NewReader to Close: nothing else may use
+// the connection (or its transaction) in between. Closing before the end
+// cancels the COPY, which aborts the caller's transaction; roll it back.
+// A cancelled context closes the connection, as pgconn does.
+//
 // Keys are kept as the server sent them, in PostgreSQL's binary format for
 // their type, and written back verbatim: a key of any type (bigint, text,
 // uuid, a composite) round-trips without being decoded.
