@@ -338,6 +338,11 @@ func TestKMeansErrors(t *testing.T) {
 		{"few distinct rows", context.Background(), NewDense([]float64{1, 1, 2, 2, 2, 7}, 1), KMeansConfig{K: 4}, errFewDistinct, []string{"3 distinct, K = 4"}},
 		{"all rows equal", context.Background(), NewDense([]float64{1, 2, 1, 2, 1, 2}, 2), KMeansConfig{K: 2}, errFewDistinct, []string{"1 distinct, K = 2"}},
 		{"negative restarts", context.Background(), three, KMeansConfig{K: 1, Restarts: -1}, nil, []string{"Restarts -1"}},
+		{"negative batch", context.Background(), three, KMeansConfig{K: 1, BatchRows: -5}, nil, []string{"BatchRows -5"}},
+		{"unknown algorithm", context.Background(), three, KMeansConfig{K: 1, Algorithm: "elkan"}, nil, []string{`unknown algorithm "elkan"`}},
+		{"unknown seeding", context.Background(), three, KMeansConfig{K: 1, Seeding: "random"}, nil, []string{`unknown seeding "random"`}},
+		{"few distinct rows, k-means||", context.Background(), NewDense([]float64{1, 1, 2, 2, 2, 7}, 1), KMeansConfig{K: 4, Seeding: SeedingScalable}, errFewDistinct, []string{"k-means||", "3 distinct, K = 4"}},
+		{"few distinct rows, minibatch", context.Background(), NewDense([]float64{1, 1, 2, 2, 2, 7}, 1), KMeansConfig{K: 4, Algorithm: AlgorithmMiniBatch}, errFewDistinct, []string{"3 distinct, K = 4"}},
 		{"NaN", context.Background(), NewDense([]float64{1, 2, 3, math.NaN()}, 2), KMeansConfig{K: 1}, nil, []string{"row 1, feature 1", "NaN"}},
 		{"cancelled", cancelled, three, KMeansConfig{K: 2}, context.Canceled, nil},
 	}
@@ -389,7 +394,7 @@ func TestKMeansRestartsAndEvals(t *testing.T) {
 		x[i] *= 0.2
 	}
 	src := NewDense(x, 2)
-	res, err := KMeans(context.Background(), src, KMeansConfig{K: 5, Seed: 8, Restarts: 5})
+	res, err := KMeans(context.Background(), src, KMeansConfig{K: 5, Seed: 8, Restarts: 5, Algorithm: AlgorithmLloyd})
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -67,172 +67,12 @@ func checkCenters(centers []float64, d int) {
 	}
 }
 
-// sqDist returns ‖x − c‖² = Σ_j (x_j − c_j)², summed from j = 0 upward.
-// c must have at least len(x) features.
-func sqDist(x, c []float64) float64 {
-	c = c[:len(x)]
-	var s float64
-	for j, v := range x {
-		t := v - c[j]
-		s += float64(t * t)
-	}
-	return s
-}
-
 // nearest is Nearest without the shape checks.
 func nearest(centers []float64, d int, x []float64) (int, float64) {
 	var l [1]int32
 	var s [1]float64
 	assignRows(l[:], s[:], centers, d, x[:d])
 	return int(l[0]), s[0]
-}
-
-var infBits = math.Float64bits(math.Inf(1))
-
-// takeLess is one step of a running argmin: it returns (s, i) if s < best
-// and (best, bi) otherwise, with best carried as raw bits so that the
-// choice compiles to integer masking instead of a branch. Which centre is
-// nearest is unpredictable, and a mispredicted branch per centre costs more
-// than the distance itself when d is small. NaN is never taken.
-func takeLess(best uint64, bi int, s float64, i int) (uint64, int) {
-	var lt int
-	if s < math.Float64frombits(best) {
-		lt = 1 // SETcc, not a jump
-	}
-	m := -lt
-	best ^= (best ^ math.Float64bits(s)) & uint64(m)
-	bi ^= (bi ^ i) & m
-	return best, bi
-}
-
-// settle handles a row whose every distance is +Inf or NaN: it reports
-// centre 0 and the distance to it.
-func settle(best uint64, bi int, x, centers []float64) (float64, int32) {
-	if best == infBits {
-		return sqDist(x, centers), 0
-	}
-	return math.Float64frombits(best), int32(bi)
-}
-
-// assignRows is the hot loop of every assignment: for each row it finds
-// the nearest centre as Nearest defines it and stores label and squared
-// distance. Shapes must already be checked and label and dist2 must have
-// one element per row. Every kernel sums each distance in feature order
-// with products rounded, and scans centres in index order keeping the first
-// strict minimum, so all kernels give the same bits; they differ only in
-// how much work they expose to the processor at once (measured by
-// BenchmarkAssign): four centres per step in general, with the row held in
-// registers for d = 2, 4 and 8 (each about 20% faster than the general
-// loop).
-func assignRows(label []int32, dist2 []float64, centers []float64, d int, rows []float64) {
-	switch d {
-	case 2:
-		assignRows2(label, dist2, centers, rows)
-	case 4:
-		assignRows4(label, dist2, centers, rows)
-	case 8:
-		assignRows8(label, dist2, centers, rows)
-	default:
-		assignRowsN(label, dist2, centers, d, rows)
-	}
-}
-
-// assignRowsN measures four centres per step, each distance on its own
-// accumulator, which gives the processor four independent chains.
-func assignRowsN(label []int32, dist2 []float64, centers []float64, d int, rows []float64) {
-	k := len(centers) / d
-	label = label[:len(dist2)]
-	for i := range dist2 {
-		x := rows[i*d : i*d+d]
-		best, bi := infBits, 0
-		c := centers
-		j := 0
-		for ; j+4 <= k; j += 4 {
-			c0, c1, c2, c3 := c[:len(x)], c[d:d+len(x)], c[2*d:2*d+len(x)], c[3*d:3*d+len(x)]
-			c = c[4*d:]
-			var s0, s1, s2, s3 float64
-			for f, v := range x {
-				t0, t1, t2, t3 := v-c0[f], v-c1[f], v-c2[f], v-c3[f]
-				s0 += float64(t0 * t0)
-				s1 += float64(t1 * t1)
-				s2 += float64(t2 * t2)
-				s3 += float64(t3 * t3)
-			}
-			best, bi = takeLess(best, bi, s0, j)
-			best, bi = takeLess(best, bi, s1, j+1)
-			best, bi = takeLess(best, bi, s2, j+2)
-			best, bi = takeLess(best, bi, s3, j+3)
-		}
-		for ; j < k; j++ {
-			best, bi = takeLess(best, bi, sqDist(x, c), j)
-			c = c[d:]
-		}
-		dist2[i], label[i] = settle(best, bi, x, centers)
-	}
-}
-
-// assignRows2 is assignRowsN for d = 2 with the row in registers.
-func assignRows2(label []int32, dist2 []float64, centers []float64, rows []float64) {
-	k := len(centers) / 2
-	label = label[:len(dist2)]
-	for i := range dist2 {
-		x := rows[2*i : 2*i+2 : 2*i+2]
-		x0, x1 := x[0], x[1]
-		best, bi := infBits, 0
-		c := centers
-		j := 0
-		for ; j+4 <= k; j += 4 {
-			cc := c[:8:8]
-			c = c[8:]
-			t0, t1, t2, t3 := x0-cc[0], x0-cc[2], x0-cc[4], x0-cc[6]
-			s0, s1, s2, s3 := float64(t0*t0), float64(t1*t1), float64(t2*t2), float64(t3*t3)
-			t0, t1, t2, t3 = x1-cc[1], x1-cc[3], x1-cc[5], x1-cc[7]
-			s0, s1, s2, s3 = s0+float64(t0*t0), s1+float64(t1*t1), s2+float64(t2*t2), s3+float64(t3*t3)
-			best, bi = takeLess(best, bi, s0, j)
-			best, bi = takeLess(best, bi, s1, j+1)
-			best, bi = takeLess(best, bi, s2, j+2)
-			best, bi = takeLess(best, bi, s3, j+3)
-		}
-		for ; j < k; j++ {
-			cc := c[:2:2]
-			c = c[2:]
-			t0, t1 := x0-cc[0], x1-cc[1]
-			best, bi = takeLess(best, bi, float64(t0*t0)+float64(t1*t1), j)
-		}
-		dist2[i], label[i] = settle(best, bi, x, centers)
-	}
-}
-
-// assignRows4 is assignRowsN for d = 4 with the row in registers, two
-// centres per step (four would run out of registers).
-func assignRows4(label []int32, dist2 []float64, centers []float64, rows []float64) {
-	k := len(centers) / 4
-	label = label[:len(dist2)]
-	for i := range dist2 {
-		x := rows[4*i : 4*i+4 : 4*i+4]
-		x0, x1, x2, x3 := x[0], x[1], x[2], x[3]
-		best, bi := infBits, 0
-		c := centers
-		j := 0
-		for ; j+2 <= k; j += 2 {
-			cc := c[:8:8]
-			c = c[8:]
-			t0, t1 := x0-cc[0], x0-cc[4]
-			s0, s1 := float64(t0*t0), float64(t1*t1)
-			t0, t1 = x1-cc[1], x1-cc[5]
-			s0, s1 = s0+float64(t0*t0), s1+float64(t1*t1)
-			t0, t1 = x2-cc[2], x2-cc[6]
-			s0, s1 = s0+float64(t0*t0), s1+float64(t1*t1)
-			t0, t1 = x3-cc[3], x3-cc[7]
-			s0, s1 = s0+float64(t0*t0), s1+float64(t1*t1)
-			best, bi = takeLess(best, bi, s0, j)
-			best, bi = takeLess(best, bi, s1, j+1)
-		}
-		if j < k {
-			best, bi = takeLess(best, bi, sqDist(x, c), j)
-		}
-		dist2[i], label[i] = settle(best, bi, x, centers)
-	}
 }
 
 // orderedReduce folds per-chunk partial results into a total in chunk
@@ -291,6 +131,14 @@ type lloydPart struct {
 	counts  []int64   // rows per cluster
 	inertia float64   // Σ ‖x − c_label‖² over the chunk's rows
 	changed int64     // rows whose label differs from the previous pass
+	evals   int64     // point–centre distances computed (Hamerly's passes)
+}
+
+// reset zeroes p for a new chunk.
+func (p *lloydPart) reset() {
+	clear(p.sums)
+	clear(p.counts)
+	p.inertia, p.changed, p.evals = 0, 0, 0
 }
 
 // lloydRun holds the state of Lloyd's iterations over one Source; its
@@ -306,9 +154,13 @@ type lloydRun struct {
 	counts  []int64
 	inertia float64
 	changed int64
-	evals   int64 // point–centre distances computed since reset
+	evals   int64 // distances computed since reset
 
 	scratch []lloydScratch // per worker
+
+	// ham, when set, makes every pass Hamerly's (hamerly.go): the same
+	// labels, sums and counts as plain Lloyd's from fewer distances.
+	ham *hamerlyState
 }
 
 type lloydScratch struct {
@@ -363,6 +215,12 @@ const (
 //
 // After a stop on the shift or the limit one more assignment pass is made
 // with the final centres, so that centres, labels, sizes and inertia agree.
+//
+// With r.ham set the assignment passes are Hamerly's (hamerlyPass), which
+// give the same labels, sums and counts bit for bit while skipping the
+// distances that bounds prove unnecessary; everything else, re-seeding
+// and stopping included, is shared, so the outcome differs from plain
+// Lloyd's only in evals.
 func (r *lloydRun) lloyd(ctx context.Context, c []float64, maxIter int, tolAbs float64) (*lloydOutcome, error) {
 	k, d := r.k, r.d
 	cur := slices.Clone(c)
@@ -371,13 +229,16 @@ func (r *lloydRun) lloyd(ctx context.Context, c []float64, maxIter int, tolAbs f
 		r.labels[i] = -1
 	}
 	r.evals = 0
+	if r.ham != nil {
+		r.ham.reset()
+	}
 	out := &lloydOutcome{stop: stopLimit}
 	var empty []int
 	for out.iterations < maxIter {
 		if err := ctx.Err(); err != nil {
 			return nil, err
 		}
-		if err := r.pass(ctx, cur); err != nil {
+		if err := r.assign(ctx, cur, false); err != nil {
 			return nil, fmt.Errorf("iteration %d: %w", out.iterations+1, err)
 		}
 		out.iterations++
@@ -415,8 +276,14 @@ func (r *lloydRun) lloyd(ctx context.Context, c []float64, maxIter int, tolAbs f
 		}
 	}
 	if out.stop != stopUnchanged {
-		if err := r.pass(ctx, cur); err != nil {
+		if err := r.assign(ctx, cur, true); err != nil {
 			return nil, fmt.Errorf("final assignment: %w", err)
+		}
+	} else if r.ham != nil {
+		// Hamerly's last pass skipped the distances its bounds made
+		// unnecessary; the inertia needs every row's.
+		if err := r.exactInertia(ctx, cur); err != nil {
+			return nil, fmt.Errorf("final inertia: %w", err)
 		}
 	}
 	out.centers = cur
@@ -426,15 +293,23 @@ func (r *lloydRun) lloyd(ctx context.Context, c []float64, maxIter int, tolAbs f
 	return out, nil
 }
 
-// pass assigns every row to its nearest centre in c, records the labels,
-// and sets r's totals (sums, counts, inertia, changed labels) folded in
-// chunk order.
-func (r *lloydRun) pass(ctx context.Context, c []float64) error {
+// assign makes one assignment pass with centres c: Hamerly's when r.ham is
+// set (final asks it for the exact inertia), plain Lloyd's otherwise.
+func (r *lloydRun) assign(ctx context.Context, c []float64, final bool) error {
+	if r.ham != nil {
+		return r.hamerlyPass(ctx, c, final)
+	}
+	return r.pass(ctx, c)
+}
+
+// startPass clears r's totals and returns the reduction that folds the
+// chunks' lloydParts into them in chunk order.
+func (r *lloydRun) startPass() *orderedReduce[*lloydPart] {
 	k, d := r.k, r.d
 	clear(r.sums)
 	clear(r.counts)
 	r.inertia, r.changed = 0, 0
-	red := newOrderedReduce(
+	return newOrderedReduce(
 		func() *lloydPart {
 			return &lloydPart{sums: make([]float64, k*d), counts: make([]int64, k)}
 		},
@@ -447,7 +322,16 @@ func (r *lloydRun) pass(ctx context.Context, c []float64) error {
 			}
 			r.inertia += p.inertia
 			r.changed += p.changed
+			r.evals += p.evals
 		})
+}
+
+// pass assigns every row to its nearest centre in c, records the labels,
+// and sets r's totals (sums, counts, inertia, changed labels) folded in
+// chunk order.
+func (r *lloydRun) pass(ctx context.Context, c []float64) error {
+	k, d := r.k, r.d
+	red := r.startPass()
 	err := eachChunk(ctx, r.src, r.workers, func(w, ci int, rows []float64, first int) error {
 		m := len(rows) / d
 		if m*d != len(rows) || first+m > len(r.labels) {
@@ -461,9 +345,7 @@ func (r *lloydRun) pass(ctx context.Context, c []float64) error {
 		assignRows(lab, dist, c, d, rows)
 
 		p := red.part()
-		clear(p.sums)
-		clear(p.counts)
-		p.inertia, p.changed = 0, 0
+		p.reset()
 		old := r.labels[first : first+m]
 		for i, l := range lab {
 			if old[i] != l {
@@ -575,44 +457,4 @@ func (r *lloydRun) reseed(ctx context.Context, c []float64, empty []int) error {
 		copy(r.sums[j*d:j*d+d], cand.x)
 	}
 	return nil
-}
-
-// assignRows8 is assignRowsN for d = 8 with the row in registers, two
-// centres per step.
-func assignRows8(label []int32, dist2 []float64, centers []float64, rows []float64) {
-	k := len(centers) / 8
-	label = label[:len(dist2)]
-	for i := range dist2 {
-		x := rows[8*i : 8*i+8 : 8*i+8]
-		x0, x1, x2, x3, x4, x5, x6, x7 := x[0], x[1], x[2], x[3], x[4], x[5], x[6], x[7]
-		best, bi := infBits, 0
-		c := centers
-		j := 0
-		for ; j+2 <= k; j += 2 {
-			cc := c[:16:16]
-			c = c[16:]
-			t0, t1 := x0-cc[0], x0-cc[8]
-			s0, s1 := float64(t0*t0), float64(t1*t1)
-			t0, t1 = x1-cc[1], x1-cc[9]
-			s0, s1 = s0+float64(t0*t0), s1+float64(t1*t1)
-			t0, t1 = x2-cc[2], x2-cc[10]
-			s0, s1 = s0+float64(t0*t0), s1+float64(t1*t1)
-			t0, t1 = x3-cc[3], x3-cc[11]
-			s0, s1 = s0+float64(t0*t0), s1+float64(t1*t1)
-			t0, t1 = x4-cc[4], x4-cc[12]
-			s0, s1 = s0+float64(t0*t0), s1+float64(t1*t1)
-			t0, t1 = x5-cc[5], x5-cc[13]
-			s0, s1 = s0+float64(t0*t0), s1+float64(t1*t1)
-			t0, t1 = x6-cc[6], x6-cc[14]
-			s0, s1 = s0+float64(t0*t0), s1+float64(t1*t1)
-			t0, t1 = x7-cc[7], x7-cc[15]
-			s0, s1 = s0+float64(t0*t0), s1+float64(t1*t1)
-			best, bi = takeLess(best, bi, s0, j)
-			best, bi = takeLess(best, bi, s1, j+1)
-		}
-		if j < k {
-			best, bi = takeLess(best, bi, sqDist(x, c), j)
-		}
-		dist2[i], label[i] = settle(best, bi, x, centers)
-	}
 }
