@@ -192,7 +192,7 @@ func unknownColumn(cols []Column, role, name string) error {
 // breaks around it keep a trailing "-- comment" from swallowing the rest.
 // Every identifier is quoted.
 func CopySQL(query string, key string, features []string) string {
-	q := strings.TrimRight(query, "; \t\r\n\f\v")
+	q := trimQuery(query)
 	var b strings.Builder
 	b.WriteString("COPY (SELECT q.")
 	b.WriteString(pgx.Identifier{key}.Sanitize())
@@ -206,3 +206,12 @@ func CopySQL(query string, key string, features []string) string {
 	b.WriteString("\n) AS q) TO STDOUT (FORMAT binary)")
 	return b.String()
 }
+
+// CountSQL counts the rows of the user's query, wrapped like CopySQL.
+func CountSQL(query string) string {
+	return "SELECT count(*) FROM (\n" + trimQuery(query) + "\n) AS q"
+}
+
+// trimQuery strips the trailing semicolons and white space that would stop
+// a query from being wrapped as a subquery.
+func trimQuery(query string) string { return strings.TrimRight(query, "; \t\r\n\f\v") }

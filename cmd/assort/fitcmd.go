@@ -31,6 +31,14 @@ type fitSpec struct {
 	workers   int
 	chunkRows int
 
+	// memory
+	memText        string
+	memory         int64 // --memory in bytes
+	spillDir       string
+	spillFloat32   bool
+	sample         int64   // --sample; 0 when not given
+	sampleFraction float64 // --sample-fraction; 0 when not given
+
 	// mixtures
 	covariance string
 	reg        float64
@@ -80,7 +88,12 @@ func parseFit(e *env, args []string) (*fitSpec, error) {
 	fs.Float64Var(&s.floor, "membership-floor", 0.001, "gmm: smallest membership probability written to the memberships table; 0 keeps all")
 	fs.StringVar(&s.init, "init", "kmeans", "gmm: kind of the first start: kmeans, kmeans++ or random (later starts mix kinds)")
 	fs.IntVar(&s.workers, "workers", 0, "worker goroutines for the numerics (default GOMAXPROCS)")
-	fs.IntVar(&s.chunkRows, "chunk-rows", 0, "rows per chunk read from the server (default 65536)")
+	fs.IntVar(&s.chunkRows, "chunk-rows", 0, "rows per chunk read from the server (default 65536, less under a small --memory); results do not depend on it")
+	fs.StringVar(&s.memText, "memory", defaultMemory, "memory for the rows and the work on them, as 512MiB, 2GiB or 800MB; rows that do not fit are spilled to --spill-dir (the Go runtime and connections take up to 32 MiB more)")
+	fs.StringVar(&s.spillDir, "spill-dir", "", "directory for rows that exceed --memory; the files are unlinked at once and vanish when the run ends, however it ends (default: $TMPDIR or /tmp)")
+	fs.BoolVar(&s.spillFloat32, "spill-float32", false, "spill features as float32: half the disk and I/O, about 7 significant digits (relative rounding below 6e-8), so a spilled fit no longer repeats an in-memory one bit for bit")
+	fs.Int64Var(&s.sample, "sample", 0, "fit on a uniform random sample of this many rows, drawn while reading (seeded by --seed; --scale is estimated on it), then score every row in a second read of the query in the same snapshot")
+	fs.Float64Var(&s.sampleFraction, "sample-fraction", 0, "like --sample, with the sample's size a fraction in (0, 1] of the query's rows (counted first, in the same snapshot)")
 	fs.BoolVar(&s.json, "json", false, "print a JSON summary on stdout")
 	fs.DurationVar(&s.wait, "wait", 0, "wait this long for another run of the same model to finish (default: exit at once with status 3)")
 	fs.IntVar(&s.retries, "retries", 0, "after a lost connection or server restart, run the whole job again up to this many times, with backoff")
@@ -126,6 +139,21 @@ func (s *fitSpec) check(changed func(string) bool) error {
 		return usagef("--wait must not be negative, got %s", s.wait)
 	case s.retries < 0:
 		return usagef("--retries must not be negative, got %d", s.retries)
+	}
+	mem, merr := dbio.ParseSize(s.memText)
+	if merr != nil {
+		return usagef("--memory: %v", merr)
+	}
+	s.memory = mem
+	switch {
+	case changed("sample") && changed("sample-fraction"):
+		return usagef("--sample and --sample-fraction both give the sample's size; give one")
+	case changed("sample") && s.sample < 1:
+		return usagef("--sample must be at least 1 row, got %d", s.sample)
+	case changed("sample-fraction") && !(s.sampleFraction > 0 && s.sampleFraction <= 1):
+		return usagef("--sample-fraction must be in (0, 1], got %v", s.sampleFraction)
+	case (changed("sample") || changed("sample-fraction")) && (changed("spill-dir") || changed("spill-float32")):
+		return usagef("--spill-dir and --spill-float32 do not apply with --sample or --sample-fraction: the sample is held in memory and the rows are read again to score them")
 	}
 	ks, err := fit.ParseKRange(s.kText)
 	if err != nil {
@@ -213,6 +241,8 @@ type summary struct {
 	RowsRead    int64              `json:"rows_read"`
 	RowsUsed    int64              `json:"rows_used"`
 	RowsSkipped int64              `json:"rows_skipped"`
+	RowsScored  int64              `json:"rows_scored"` // rows written: RowsUsed, or more after a sample
+	Storage     string             `json:"storage"`     // where the fitted rows were: memory, spill or sample
 	Inertia     *float64           `json:"inertia,omitempty"`
 	LogLik      *float64           `json:"log_likelihood,omitempty"`
 	BIC         *float64           `json:"bic,omitempty"`
@@ -235,8 +265,12 @@ func report(e *env, asJSON bool, s *summary) error {
 	if asJSON {
 		return writeJSON(e.stdout, s)
 	}
-	fmt.Fprintf(e.stdout, "%s@%d: %s, k=%d, %d rows used (%d read, %d skipped)\n",
+	fmt.Fprintf(e.stdout, "%s@%d: %s, k=%d, %d rows used (%d read, %d skipped)",
 		s.Model, s.Version, s.Algorithm, s.K, s.RowsUsed, s.RowsRead, s.RowsSkipped)
+	if s.RowsScored != s.RowsUsed {
+		fmt.Fprintf(e.stdout, ", fitted on a sample; %d rows scored", s.RowsScored)
+	}
+	fmt.Fprintln(e.stdout)
 	if s.Inertia != nil {
 		fmt.Fprintf(e.stdout, "  inertia %.6g", *s.Inertia)
 	}

@@ -14,93 +14,113 @@ import (
 	"assort/schema"
 )
 
-// dataset is a query's rows held in memory: keys as the server sent them
-// and features as float64, row-major.
-type dataset struct {
-	key      dbio.Column
-	features []dbio.Column
-	keys     dbio.Keys
-	x        []float64
-	read     int64
-	skipped  int64
-}
-
-func (d *dataset) n() int { return d.keys.Len() }
-func (d *dataset) featureNames() []string {
-	names := make([]string, len(d.features))
-	for i, f := range d.features {
-		names[i] = f.Name
-	}
-	return names
-}
-
 // readSpec says what to read.
 type readSpec struct {
-	query     string
-	key       string
-	features  []string // empty: every column but the key
-	missing   dbio.Missing
-	chunkRows int
+	query    string
+	key      string
+	features []string // empty: every column but the key
+	missing  dbio.Missing
 	// scoring, when set, is the model whose rows are scored: the query
 	// must return its key, of the same type, and its features, and nothing
 	// else.
 	scoring *schema.Model
 }
 
-// readDataset runs the user's query inside a READ ONLY, REPEATABLE READ
-// transaction and reads its key and features with a binary COPY.
-func readDataset(ctx context.Context, e *env, conn *pgx.Conn, rs readSpec) (*dataset, error) {
-	query, key, features, missing, chunkRows := rs.query, rs.key, rs.features, rs.missing, rs.chunkRows
+// readTx is a run's read transaction on the reader connection, READ ONLY
+// and REPEATABLE READ: every read of the query in it sees one snapshot, so
+// a run that reads the query more than once (--sample, then a scoring
+// pass; `assort score` with a mixture) sees the same rows each time. It
+// stays open from the first COPY to the last, and ends with a rollback,
+// never a commit: READ ONLY does not stop everything (large objects,
+// notifications), and nothing the query did should persist.
+type readTx struct {
+	conn     *pgx.Conn
+	tx       pgx.Tx
+	key      dbio.Column
+	features []dbio.Column
+	query    string
+	missing  dbio.Missing
+	ended    bool
+}
+
+// openRead begins the read transaction on conn and describes the query:
+// its key and feature columns, checked as rs asks.
+func openRead(ctx context.Context, conn *pgx.Conn, rs readSpec) (*readTx, error) {
 	tx, err := conn.BeginTx(ctx, pgx.TxOptions{IsoLevel: pgx.RepeatableRead, AccessMode: pgx.ReadOnly})
 	if err != nil {
 		return nil, fmt.Errorf("begin read: %w", err)
 	}
-	defer tx.Rollback(context.WithoutCancel(ctx))
-	cols, err := dbio.Describe(ctx, conn, query)
-	if err != nil {
+	rt := &readTx{conn: conn, tx: tx, query: rs.query, missing: rs.missing}
+	fail := func(err error) (*readTx, error) {
+		rt.end(context.WithoutCancel(ctx))
 		return nil, err
 	}
-	kc, fcs, err := dbio.Resolve(cols, key, features)
+	cols, err := dbio.Describe(ctx, conn, rs.query)
 	if err != nil {
-		return nil, err
+		return fail(err)
+	}
+	kc, fcs, err := dbio.Resolve(cols, rs.key, rs.features)
+	if err != nil {
+		return fail(err)
 	}
 	if err := schema.CheckKeyColumn(kc.Name); err != nil {
-		return nil, err
+		return fail(err)
 	}
 	if rs.scoring != nil {
 		if err := matchesModel(rs.scoring, cols, kc); err != nil {
-			return nil, err
+			return fail(err)
 		}
 	}
-	ds := &dataset{key: kc, features: fcs}
-	names := ds.featureNames()
-	if err := checkpoint(ctx, e, phaseRead); err != nil {
-		return nil, err
+	rt.key, rt.features = kc, fcs
+	return rt, nil
+}
+
+// names are the feature columns' names.
+func (t *readTx) names() []string {
+	names := make([]string, len(t.features))
+	for i, f := range t.features {
+		names[i] = f.Name
 	}
-	r := dbio.NewReader(ctx, conn.PgConn(), dbio.CopySQL(query, kc.Name, names), len(fcs), dbio.ReaderConfig{
-		ChunkRows: chunkRows, Missing: missing, KeyType: kc.TypeOID, KeyName: kc.Name, Features: names,
+	return names
+}
+
+// reader starts a read of the query's key and features with a binary
+// COPY, in chunks of chunkRows rows.
+func (t *readTx) reader(ctx context.Context, chunkRows int) *dbio.Reader {
+	names := t.names()
+	return dbio.NewReader(ctx, t.conn.PgConn(), dbio.CopySQL(t.query, t.key.Name, names), len(names), dbio.ReaderConfig{
+		ChunkRows: chunkRows, Missing: t.missing, KeyType: t.key.TypeOID, KeyName: t.key.Name, Features: names,
 	})
-	for r.Next() {
-		c := r.Chunk()
-		for i := range c.N {
-			ds.keys.Append(c.Keys.At(i))
-		}
-		ds.x = append(ds.x, c.X[:c.N*c.D]...)
+}
+
+// feed opens scoring passes that read the query again, scaled by sc (nil:
+// as read); each pass's counts go to counts when it ends.
+func (t *readTx) feed(chunkRows int, sc *fit.Scaling, counts *readCounts) feedFunc {
+	return func(ctx context.Context) (rowFeed, error) {
+		return &readerFeed{r: t.reader(ctx, chunkRows), sc: sc, d: len(t.features), counts: counts}, nil
 	}
-	if err := r.Err(); err != nil {
-		r.Close()
-		return nil, fmt.Errorf("read: %w", err)
+}
+
+// count returns the number of rows the query returns, in the snapshot.
+// The statement is the query wrapped as CopySQL wraps it.
+func (t *readTx) count(ctx context.Context) (int64, error) {
+	var n int64
+	if err := t.conn.QueryRow(ctx, dbio.CountSQL(t.query)).Scan(&n); err != nil {
+		return 0, fmt.Errorf("count the query's rows: %w", err)
 	}
-	if err := r.Close(); err != nil {
-		return nil, fmt.Errorf("read: %w", err)
+	return n, nil
+}
+
+// end rolls the transaction back. It is idempotent.
+func (t *readTx) end(ctx context.Context) error {
+	if t.ended {
+		return nil
 	}
-	ds.read, ds.skipped = r.RowsRead(), r.RowsSkipped()
-	// Roll back, never commit: READ ONLY does not stop everything (large
-	// objects, notifications), and nothing the query did should persist.
-	if err := tx.Rollback(ctx); err != nil {
-		return nil, fmt.Errorf("end read: %w", err)
+	t.ended = true
+	if err := t.tx.Rollback(ctx); err != nil {
+		return fmt.Errorf("end read: %w", err)
 	}
-	return ds, nil
+	return nil
 }
 
 // fitJob reads, fits, writes and publishes one new version of a model.
@@ -140,7 +160,18 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 		return nil, err
 	}
 	defer r.Close(context.WithoutCancel(ctx))
-	ds, err := readDataset(ctx, e, r, readSpec{query: s.query, key: s.key, features: s.features, missing: s.missingPolicy(), chunkRows: s.chunkRows})
+	rt, err := openRead(ctx, r, readSpec{query: s.query, key: s.key, features: s.features, missing: s.missingPolicy()})
+	if err != nil {
+		return nil, err
+	}
+	defer rt.end(context.WithoutCancel(ctx))
+	plan := newMemPlan(s.memory, len(rt.features), rt.key.TypeOID, s.chunkRows, s.workers, s.method, s.ks[len(s.ks)-1], s.init == fit.InitKMeans)
+	if err := plan.check("--memory"); err != nil {
+		return nil, err
+	}
+	defer limitHeap(plan.budget)()
+	rd, err := readRows(ctx, e, s, rt, plan)
+	defer rd.remove()
 	if err != nil {
 		return nil, err
 	}
@@ -150,33 +181,39 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 			return nil, err
 		}
 	}
-	n, d := ds.n(), len(ds.features)
-	e.logf("read %d rows of %d features (%d skipped) in %.2fs", ds.read, d, ds.skipped, times["read"])
-	if n == 0 {
-		if ds.skipped > 0 {
-			return nil, fmt.Errorf("no usable rows: all %d rows read had a NULL, NaN or infinite feature", ds.read)
+	n, d := rd.fitRows(), len(rt.features)
+	e.logf("read %d rows of %d features (%d skipped) in %.2fs", rd.read, d, rd.skipped, times["read"])
+	if rd.read == rd.skipped {
+		if rd.skipped > 0 {
+			return nil, fmt.Errorf("no usable rows: all %d rows read had a NULL, NaN or infinite feature", rd.read)
 		}
 		return nil, errors.New("no rows: the query returned nothing")
 	}
 	if top := s.ks[len(s.ks)-1]; top > n {
-		if len(s.ks) == 1 {
-			return nil, fmt.Errorf("--k %d is more than the %d usable rows", top, n)
+		what := fmt.Sprintf("the %d usable rows", n)
+		if rd.sampled() {
+			what = fmt.Sprintf("the %d rows of the sample", n)
 		}
-		return nil, fmt.Errorf("--k %s: the largest candidate, %d, is more than the %d usable rows", s.kText, top, n)
+		if len(s.ks) == 1 {
+			return nil, fmt.Errorf("--k %d is more than %s", top, what)
+		}
+		return nil, fmt.Errorf("--k %s: the largest candidate, %d, is more than %s", s.kText, top, what)
 	}
+	e.logf("%s", rd.describe(s))
 
-	src := fit.NewDense(ds.x, d)
-	scaling, err := scaleFeatures(ctx, e, s, ds, src)
+	scaling, err := scaleFeatures(ctx, e, s, rt.names(), rd.source())
 	if err != nil {
 		return nil, err
 	}
+	src, passes := rd.scaled(rt, scaling)
+	passes.workers = workerCount(s.workers)
 
 	m := &schema.Model{
-		Name: s.name, Method: s.method, K: s.ks[0], Features: ds.featureNames(),
-		KeyColumn: ds.key.Name, KeyType: ds.key.TypeName, Query: s.query, Scale: s.scale,
+		Name: s.name, Method: s.method, K: s.ks[0], Features: rt.names(),
+		KeyColumn: rt.key.Name, KeyType: rt.key.TypeName, Query: s.query, Scale: s.scale,
 		Center: scaling.Center, Spread: scaling.Spread,
 		Seed: int64(s.seed), Restarts: s.restarts, MaxIter: s.maxIter, Tol: s.tol,
-		RowsRead: ds.read, RowsUsed: int64(n), RowsSkipped: ds.skipped,
+		RowsRead: rd.read, RowsUsed: int64(n), RowsSkipped: rd.skipped,
 		ToolVersion: toolVersion,
 	}
 	if s.method == "gmm" {
@@ -198,9 +235,18 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	if err := checkpoint(ctx, e, phaseFit); err != nil {
 		return nil, err
 	}
+	algorithm := plan.algorithm(rd.resident(), int64(n))
+	var sil *fit.Dense
+	if s.method == "kmeans" {
+		if sil, err = silhouetteSample(ctx, src, s.seed); err != nil {
+			return nil, err
+		}
+	}
 	cands := make([]*candidate, 0, len(s.ks))
 	for _, k := range s.ks {
-		c, err := fitCandidate(ctx, s, src, k)
+		fm := e.meter(fmt.Sprintf("fit k=%d, all passes", k), 0)
+		c, err := fitCandidate(ctx, s, &countedSource{Source: src, m: fm}, k, algorithm, sil)
+		fm.end()
 		if err != nil {
 			if len(s.ks) > 1 {
 				return nil, fmt.Errorf("k=%d: %w", k, err)
@@ -212,19 +258,20 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 		}
 		if len(s.ks) > 1 {
 			val, _, _ := c.criterion(s.criterion)
-			e.logf("k=%d: %s %.6g", k, s.criterion, val)
+			e.logf("k=%d: %s %.6g (%d passes over the rows)", k, s.criterion, val, passesOver(fm.rows(), n))
 		}
 		cands = append(cands, c)
 	}
+	sil = nil
 	best := choose(cands, s.criterion)
 	if best < 0 {
 		return nil, fmt.Errorf("no candidate has a finite %s; every fit is degenerate (rows identical within clusters?)", s.criterion)
 	}
 	chosen := cands[best]
 	chosen.record(m, s)
-	out := chosen.score(src, scaling, s.floor)
+	out := chosen.fitted(d, scaling, s.floor)
 	mark("fit")
-	e.logf("fitted in %.2fs: k=%d chosen by %s; %d iterations, %s", times["fit"], chosen.k, s.criterion, m.Iterations, m.StopReason)
+	e.logf("fitted in %.2fs: k=%d chosen by %s; %d iterations, %s; %s", times["fit"], chosen.k, s.criterion, m.Iterations, m.StopReason, chosen.objective())
 	out.candidates = candidateRows(cands, best)
 	out.criterion = s.criterion
 	if !s.noRenumber {
@@ -232,9 +279,11 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 			return nil, err
 		}
 	}
+	rd.dropSample()
+	src, cands, chosen = nil, nil, nil
 
 	m.ResultTable = v.Results().Sanitize()
-	if err := writeVersion(ctx, e, w, reg, v, m, ds, out, !s.noPublish); err != nil {
+	if err := writeVersion(ctx, e, w, reg, v, m, rt.key, passes, out, !s.noPublish); err != nil {
 		return nil, err
 	}
 	written = true
@@ -244,17 +293,22 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	} else {
 		e.logf("wrote and published %s in %.2fs", m.ResultTable, times["write"])
 	}
+	if err := rt.end(ctx); err != nil {
+		// The version is committed; the read transaction only read.
+		e.warnf("%s was written, but the read transaction did not end cleanly: %v", v, err)
+	}
 
 	sum := &summary{
 		Model: m.Name, Version: m.Version, Method: m.Method, Algorithm: m.Algorithm, K: m.K,
 		Features: m.Features, RowsRead: m.RowsRead, RowsUsed: m.RowsUsed, RowsSkipped: m.RowsSkipped,
+		RowsScored: out.scored, Storage: rd.storage(),
 		Inertia: m.Inertia, LogLik: m.LogLikelihood, BIC: m.BIC, AIC: m.AIC,
 		Iterations: m.Iterations, Converged: m.Converged, Stop: m.StopReason,
 		Table: m.ResultTable, View: schema.View(e.schema, m.Name).Sanitize(),
 		Published: !s.noPublish, Clusters: out.components, Seconds: times,
 		Criterion: out.criterion, Candidates: out.candidates,
 	}
-	if out.memberships != nil {
+	if out.mixture() {
 		sum.Memberships = v.Memberships().Sanitize()
 	}
 	if s.labels != "" {
@@ -265,6 +319,11 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 		sum.Comparison = c
 	}
 	return sum, nil
+}
+
+// passesOver is the number of passes over n rows that scanned rows make.
+func passesOver(scanned int64, n int) int64 {
+	return (scanned + int64(n) - 1) / int64(n)
 }
 
 // renumberAgainstPublished matches the new clusters to the published
@@ -288,10 +347,10 @@ func renumberAgainstPublished(ctx context.Context, e *env, conn *pgx.Conn, reg s
 	return nil
 }
 
-// scaleFeatures centres and scales the rows in place as --scale asks and
-// warns when unscaled features have very different spreads.
-func scaleFeatures(ctx context.Context, e *env, s *fitSpec, ds *dataset, src *fit.Dense) (fit.Scaling, error) {
-	names := ds.featureNames()
+// scaleFeatures fits the scaling --scale asks for on the rows of src (one
+// or two passes; "robust" one more per feature), and warns when unscaled
+// features have very different spreads. The caller applies it.
+func scaleFeatures(ctx context.Context, e *env, s *fitSpec, names []string, src fit.Source) (fit.Scaling, error) {
 	if s.scale == "none" && len(names) > 1 {
 		sd, err := fit.Spreads(ctx, src, s.workers)
 		if err != nil {
@@ -318,29 +377,45 @@ func scaleFeatures(ctx context.Context, e *env, s *fitSpec, ds *dataset, src *fi
 	for _, j := range constant {
 		e.warnf("feature %q has no spread; it is centred but not scaled", names[j])
 	}
-	if s.scale != "none" {
-		sc.Apply(ds.x, ds.x)
-	}
 	return sc, nil
 }
 
-// fitted is a model's per-row results, aligned with the dataset's rows,
-// and its components in original units.
+// fitted is a fitted model ready to score rows: its components in
+// original units, the model in the units the fit used, and the numbers its
+// clusters are published under. It holds nothing per row: the scoring
+// passes compute every row's outputs as they write them.
 type fitted struct {
-	components  []schema.Component
-	cluster     []int32   // 1-based
-	probability []float64 // nil means 1 for every row
-	distance    []float64
-	logDensity  []float64 // nil for k-means
-	// memberships[i*k+j] is row i's probability of cluster j+1; nil for k-means.
-	memberships []float64
-	floor       float64
+	components []schema.Component
+	model      *scoringModel
+	floor      float64
 	// numbers[j] is the published number of the j-th fitted component
 	// (memberships columns are in fitted order); nil means j+1.
 	numbers []int32
 
 	candidates []schema.Candidate
 	criterion  string
+	// scored is the number of rows the results pass wrote.
+	scored int64
+}
+
+// mixture reports whether the model is a mixture, with memberships.
+func (f *fitted) mixture() bool { return f.model.mx != nil }
+
+// setSizes records the rows of each fitted cluster, counted by the results
+// pass over rows rows, in the components; a k-means component's weight is
+// its share of the rows.
+func (f *fitted) setSizes(sizes []int64, rows int64) {
+	byNumber := make(map[int]int64, len(sizes))
+	for j, n := range sizes {
+		byNumber[int(f.number(j))] = n
+	}
+	for i := range f.components {
+		c := &f.components[i]
+		c.Size = byNumber[c.Cluster]
+		if !f.mixture() && rows > 0 {
+			c.Weight = float64(c.Size) / float64(rows)
+		}
+	}
 }
 
 // keyError explains a failure to build the primary key: usually a
@@ -351,14 +426,6 @@ func keyError(key string, err error) error {
 		return fmt.Errorf("key column %q is not unique: %s", key, pgErr.Detail)
 	}
 	return fmt.Errorf("key column %q: %w", key, err)
-}
-
-// number is the cluster number of the j-th fitted component.
-func (f *fitted) number(j int) int32 {
-	if f.numbers == nil {
-		return int32(j + 1)
-	}
-	return f.numbers[j]
 }
 
 // candidateRows turns fitted candidates into registry rows.

@@ -24,15 +24,17 @@ type candidate struct {
 	silhouette *float64
 }
 
-// fitCandidate fits one k with the spec's method and computes its
-// criteria.
-func fitCandidate(ctx context.Context, s *fitSpec, src *fit.Dense, k int) (*candidate, error) {
+// fitCandidate fits one k with the spec's method on src (scaled rows)
+// and computes its criteria. algorithm is the k-means iterations the
+// memory plan allows; sil is the silhouette's sample of src (k-means).
+func fitCandidate(ctx context.Context, s *fitSpec, src fit.Source, k int, algorithm string, sil *fit.Dense) (*candidate, error) {
 	c := &candidate{k: k}
-	n, d := src.N, src.D
+	n, d := src.Len(), src.Dim()
 	switch s.method {
 	case "kmeans":
 		res, err := fit.KMeans(ctx, src, fit.KMeansConfig{
 			K: k, Seed: s.seed, Restarts: s.restarts, MaxIter: s.maxIter, Tol: s.tol, Workers: s.workers,
+			Algorithm: algorithm,
 		})
 		if err != nil {
 			return nil, err
@@ -41,13 +43,13 @@ func fitCandidate(ctx context.Context, s *fitSpec, src *fit.Dense, k int) (*cand
 		logL, p, bic := fit.KMeansBIC(n, d, res.Sizes, res.Inertia)
 		aic := -2*logL + 2*float64(p)
 		c.inertia, c.logL, c.params, c.bic, c.aic = &res.Inertia, &logL, p, &bic, &aic
-		labels := make([]int32, n)
-		fit.Assign(labels, nil, res.Centers, d, src.X)
-		sil, err := fit.Silhouette(ctx, src, labels, k, 0, s.seed, s.workers)
+		labels := make([]int32, sil.N)
+		fit.Assign(labels, nil, res.Centers, d, sil.X)
+		v, err := fit.Silhouette(ctx, sil, labels, k, sil.N, s.seed, s.workers)
 		if err != nil {
 			return nil, err
 		}
-		c.silhouette = &sil
+		c.silhouette = &v
 	case "gmm":
 		res, err := fit.Mixture(ctx, src, fit.MixtureConfig{
 			K: k, Covariance: fit.Covariance(s.covariance), Reg: s.reg, Seed: s.seed,
@@ -61,6 +63,34 @@ func fitCandidate(ctx context.Context, s *fitSpec, src *fit.Dense, k int) (*cand
 		c.logL, c.params, c.bic, c.aic, c.icl = &res.LogLikelihood, res.Params, &res.BIC, &res.AIC, &icl
 	}
 	return c, nil
+}
+
+// silhouetteStream is mixed into the seed of the silhouette's sample, so
+// that it differs from other draws seeded with the same --seed.
+const silhouetteStream = 0x73696c686f756574 // "silhouet"
+
+// silhouetteSample draws the rows the silhouette criterion is estimated
+// on: a uniform sample of fit.DefaultSilhouetteSample rows of src
+// (fit.Reservoir, one pass, seeded from seed). The silhouette of a
+// candidate is then that of its partition of the sample, exactly: the
+// estimate fit.Silhouette would make by sampling itself (common practice:
+// the silhouette over all n rows needs n² distances), without a label per
+// row of the table.
+func silhouetteSample(ctx context.Context, src fit.Source, seed uint64) (*fit.Dense, error) {
+	d := src.Dim()
+	res := fit.NewReservoir(fit.DefaultSilhouetteSample, d, seed^silhouetteStream)
+	buf := make([]float64, 0, storeChunkRows*d)
+	for c := range src.Chunks() {
+		if err := ctx.Err(); err != nil {
+			return nil, err
+		}
+		rows, _, err := src.Chunk(c, buf)
+		if err != nil {
+			return nil, fmt.Errorf("silhouette sample: %w", err)
+		}
+		res.Add(rows)
+	}
+	return res.Sample(), nil
 }
 
 // iterations, converged and stop describe the candidate's winning run.
@@ -97,7 +127,7 @@ func (c *candidate) record(m *schema.Model, s *fitSpec) {
 	m.K = c.k
 	m.Iterations, m.Converged, m.StopReason = c.iterations()
 	if c.km != nil {
-		m.Algorithm = "lloyd, greedy k-means++ seeding"
+		m.Algorithm = c.km.Algorithm
 		m.Inertia = c.inertia
 		return
 	}
@@ -107,64 +137,83 @@ func (c *candidate) record(m *schema.Model, s *fitSpec) {
 	m.Events = c.mx.Events
 }
 
-// score computes every row's outputs under the candidate's model and its
-// components in original units. sc is the scaling the fit used.
-func (c *candidate) score(src *fit.Dense, sc fit.Scaling, floor float64) *fitted {
+// objective describes the candidate's objective, for the log.
+func (c *candidate) objective() string {
 	if c.km != nil {
-		return scoreKMeans(c.km, src, sc)
+		return fmt.Sprintf("inertia %.6g", c.km.Inertia)
 	}
-	return scoreMixture(c.mx, src, sc, floor)
+	return fmt.Sprintf("log-likelihood %.6g", c.mx.LogLikelihood)
 }
 
-func scoreKMeans(res *fit.KMeansResult, src *fit.Dense, sc fit.Scaling) *fitted {
-	n, d := src.N, src.D
-	labels := make([]int32, n)
-	dist := make([]float64, n)
-	fit.Assign(labels, dist, res.Centers, d, src.X)
-	out := &fitted{cluster: labels, distance: dist}
-	sizes := make([]int64, res.K)
-	for i := range labels {
-		sizes[labels[i]]++
-		labels[i]++
-		dist[i] = math.Sqrt(dist[i])
+// fitted returns the candidate's model ready to score rows of d features,
+// and its components in original units; sc is the scaling the fit used.
+// The components' sizes (and a k-means component's weight) are counted by
+// the results pass (fitted.setSizes).
+func (c *candidate) fitted(d int, sc fit.Scaling, floor float64) *fitted {
+	if c.km != nil {
+		res := c.km
+		out := &fitted{model: &scoringModel{k: res.K, d: d, centers: res.Centers}}
+		for j := range res.K {
+			center := make([]float64, d)
+			sc.Invert(center, res.Centers[j*d:(j+1)*d])
+			out.components = append(out.components, schema.Component{
+				Cluster: j + 1, Center: center, FittedCenter: res.Centers[j*d : (j+1)*d],
+			})
+		}
+		return out
 	}
-	for j := range res.K {
-		c := make([]float64, d)
-		sc.Invert(c, res.Centers[j*d:(j+1)*d])
-		out.components = append(out.components, schema.Component{
-			Cluster: j + 1, Size: sizes[j], Weight: float64(sizes[j]) / float64(n), Center: c,
-			FittedCenter: res.Centers[j*d : (j+1)*d],
-		})
-	}
-	return out
-}
-
-func scoreMixture(res *fit.MixtureResult, src *fit.Dense, sc fit.Scaling, floor float64) *fitted {
-	n, d, k := src.N, src.D, res.K
-	out := &fitted{
-		cluster:     make([]int32, n),
-		probability: make([]float64, n),
-		distance:    make([]float64, n),
-		logDensity:  make([]float64, n),
-		memberships: make([]float64, n*k),
-		floor:       floor,
-	}
-	sizes := make([]int64, k)
-	for i := range n {
-		label, p, logd, mahal := res.Posterior(out.memberships[i*k:(i+1)*k], src.Row(i))
-		out.cluster[i] = int32(label + 1)
-		out.probability[i], out.logDensity[i], out.distance[i] = p, logd, mahal
-		sizes[label]++
-	}
+	res := c.mx
+	out := &fitted{model: &scoringModel{k: res.K, d: d, mx: res}, floor: floor}
 	means, covs := res.Unscale(sc.Center, sc.Spread)
-	for j := range k {
+	for j := range res.K {
 		out.components = append(out.components, schema.Component{
-			Cluster: j + 1, Size: sizes[j], Weight: res.Weights[j],
+			Cluster: j + 1, Weight: res.Weights[j],
 			Center: means[j*d : (j+1)*d], Covariance: covs[j*d*d : (j+1)*d*d],
 			FittedCenter: res.Means[j*d : (j+1)*d], FittedCovariance: res.Covs[j*d*d : (j+1)*d*d],
 		})
 	}
 	return out
+}
+
+// scoringModel is a fitted model as the scoring passes use it, in the
+// units of the fit (scaled rows). Its methods compute a batch's outputs;
+// they may run on several goroutines at once, on different batches.
+type scoringModel struct {
+	k, d    int
+	centers []float64          // k-means: k×d centres
+	mx      *fit.MixtureResult // mixtures
+}
+
+// results computes every row's fitted cluster (0-based) and distance to
+// its centre: Euclidean for k-means (fit.Assign, the same arithmetic as
+// the fit's), Mahalanobis for mixtures, with the row's membership of that
+// cluster and its log density (fit.MixtureResult.Posterior). scratch holds
+// k values.
+func (sm *scoringModel) results(b *batch, scratch []float64) {
+	b.outputs(sm.k, false)
+	d := sm.d
+	if sm.mx == nil {
+		fit.Assign(b.label, b.dist, sm.centers, d, b.x[:b.n*d])
+		for i, v := range b.dist {
+			b.dist[i] = math.Sqrt(v)
+		}
+		return
+	}
+	for i := range b.n {
+		label, p, logd, mahal := sm.mx.Posterior(scratch[:sm.k], b.x[i*d:(i+1)*d])
+		b.label[i], b.prob[i], b.logd[i], b.dist[i] = int32(label), p, logd, mahal
+	}
+}
+
+// memberships computes every row's memberships of the k components of a
+// mixture into b.mem, and its hard outputs as results does.
+func (sm *scoringModel) memberships(b *batch, _ []float64) {
+	b.outputs(sm.k, true)
+	d, k := sm.d, sm.k
+	for i := range b.n {
+		label, p, logd, mahal := sm.mx.Posterior(b.mem[i*k:(i+1)*k], b.x[i*d:(i+1)*d])
+		b.label[i], b.prob[i], b.logd[i], b.dist[i] = int32(label), p, logd, mahal
+	}
 }
 
 // choose returns the index of the best candidate by criterion, the

@@ -23,8 +23,8 @@ import (
 // rows because they exist for every pair of versions, even when the two
 // fits saw different rows.
 //
-// It rewrites out's cluster numbers and components in place and returns
-// the total cost.
+// It sets out.numbers, which the scoring passes apply as they encode rows,
+// renumbers out.components, and returns the total cost.
 func renumber(out *fitted, prev []schema.Component, sc fit.Scaling) float64 {
 	k, kp := len(out.components), len(prev)
 	d := len(out.components[0].FittedCenter)
@@ -61,9 +61,6 @@ func renumber(out *fitted, prev []schema.Component, sc fit.Scaling) float64 {
 			numbers[i] = int32(next)
 		}
 		c.Cluster = int(numbers[i])
-	}
-	for r, old := range out.cluster {
-		out.cluster[r] = numbers[old-1]
 	}
 	out.numbers = numbers
 	slices.SortFunc(out.components, func(a, b schema.Component) int { return a.Cluster - b.Cluster })

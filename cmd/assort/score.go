@@ -22,6 +22,9 @@ type scoreSpec struct {
 	mode      string
 	missing   string
 	chunkRows int
+	workers   int
+	memText   string
+	memory    int64
 	wait      time.Duration
 	retries   int
 	json      bool
@@ -33,7 +36,9 @@ func runScore(ctx context.Context, e *env, args []string) error {
 	fs.StringVar(&s.query, "query", "", "SQL query returning the model's key and feature columns, by name (required)")
 	fs.StringVar(&s.mode, "mode", "upsert", "upsert: add new keys and update changed rows; replace: the version's tables become exactly this query's rows")
 	fs.StringVar(&s.missing, "missing", "fail", "a row with a NULL, NaN or infinite feature: fail, or skip")
-	fs.IntVar(&s.chunkRows, "chunk-rows", 0, "rows per chunk read from the server (default 65536)")
+	fs.IntVar(&s.chunkRows, "chunk-rows", 0, "rows per chunk read from the server (default 65536, less under a small --memory)")
+	fs.IntVar(&s.workers, "workers", 0, "worker goroutines scoring rows (default GOMAXPROCS)")
+	fs.StringVar(&s.memText, "memory", defaultMemory, "memory for rows in flight and working space, as 512MiB or 2GiB; the rows stream through, so a little suffices")
 	fs.DurationVar(&s.wait, "wait", 0, "wait this long for another run of the same model to finish (default: exit at once with status 3)")
 	fs.IntVar(&s.retries, "retries", 0, "after a lost connection or server restart, run the whole job again up to this many times, with backoff")
 	fs.BoolVar(&s.json, "json", false, "print a JSON summary on stdout")
@@ -57,6 +62,11 @@ func runScore(ctx context.Context, e *env, args []string) error {
 		return usagef("--missing must be fail or skip, got %q", s.missing)
 	case s.chunkRows < 0 || s.wait < 0 || s.retries < 0:
 		return usagef("--chunk-rows, --wait and --retries must not be negative")
+	case s.workers < 0:
+		return usagef("--workers must not be negative, got %d", s.workers)
+	}
+	if s.memory, err = dbio.ParseSize(s.memText); err != nil {
+		return usagef("--memory: %v", err)
 	}
 	res, err := withRetries(ctx, e, s.retries, func() (*scoreSummary, error) { return scoreJob(ctx, e, &s) })
 	if err != nil {
@@ -114,51 +124,72 @@ func scoreJob(ctx context.Context, e *env, s *scoreSpec) (*scoreSummary, error) 
 	if s.missing == "skip" {
 		missing = dbio.MissingSkip
 	}
-	ds, err := readDataset(ctx, e, r, readSpec{query: s.query, key: m.KeyColumn, features: m.Features, missing: missing, chunkRows: s.chunkRows, scoring: m})
+	rt, err := openRead(ctx, r, readSpec{query: s.query, key: m.KeyColumn, features: m.Features, missing: missing, scoring: m})
 	if err != nil {
 		return nil, err
 	}
-	e.logf("read %d rows (%d skipped) to score with %s", ds.read, ds.skipped, v)
-	out, err := scoreStored(m, comps, ds)
+	defer rt.end(context.WithoutCancel(ctx))
+	out, err := storedModel(m, comps)
 	if err != nil {
 		return nil, err
 	}
+	plan := newMemPlan(s.memory, len(rt.features), rt.key.TypeOID, s.chunkRows, s.workers, m.Method, len(comps), false)
+	plan.scoring = true
+	if err := plan.check("--memory"); err != nil {
+		return nil, err
+	}
+	defer limitHeap(plan.budget)()
+	if err := checkpoint(ctx, e, phaseRead); err != nil {
+		return nil, err
+	}
+	var sc *fit.Scaling
+	if m.Scale != "none" {
+		sc = &fit.Scaling{Method: m.Scale, Center: m.Center, Spread: m.Spread}
+	}
+	var counts readCounts
+	rp := rowPasses{open: rt.feed(plan.readRows, sc, &counts), rows: -1, workers: plan.workers}
 
 	tx, err := w.Begin(ctx)
 	if err != nil {
 		return nil, err
 	}
 	defer tx.Rollback(context.WithoutCancel(ctx))
-	withMem := m.Method == "gmm"
+	withMem := out.mixture()
 	for _, ddl := range schema.StagingDDL(v, withMem) {
 		if _, err := tx.Exec(ctx, ddl); err != nil {
 			return nil, fmt.Errorf("stage: %w", err)
 		}
 	}
-	if err := copyResults(ctx, e, w, schema.StagingResults, ds, out); err != nil {
+	res, err := copyResults(ctx, e, w, schema.StagingResults, m.KeyColumn, rp, out)
+	if err != nil {
 		return nil, err
 	}
+	e.logf("read %d rows (%d skipped) to score with %s", counts.read, counts.skipped, v)
 	if _, err := tx.Exec(ctx, schema.StagingKeyDDL(m.KeyColumn)); err != nil {
 		return nil, keyError(m.KeyColumn, err)
 	}
 	if withMem {
-		if err := copyMemberships(ctx, w, schema.StagingMemberships, ds, out); err != nil {
+		rp.rows = res.rows
+		if err := copyMemberships(ctx, e, w, schema.StagingMemberships, m.KeyColumn, rp, out); err != nil {
 			return nil, err
 		}
+	}
+	if err := rt.end(ctx); err != nil {
+		return nil, err
 	}
 	for _, stmt := range schema.MergeSQL(v, m.KeyColumn, s.mode, withMem) {
 		if _, err := tx.Exec(ctx, stmt); err != nil {
 			return nil, fmt.Errorf("merge into %s: %w", v.Results().Sanitize(), err)
 		}
 	}
-	if err := reg.RecordScoring(ctx, tx, v, schema.Scoring{Mode: s.mode, Query: s.query, RowsRead: ds.read, RowsUsed: int64(ds.n()), Skipped: ds.skipped}); err != nil {
+	if err := reg.RecordScoring(ctx, tx, v, schema.Scoring{Mode: s.mode, Query: s.query, RowsRead: counts.read, RowsUsed: res.rows, Skipped: counts.skipped}); err != nil {
 		return nil, err
 	}
 	if err := tx.Commit(ctx); err != nil {
 		return nil, fmt.Errorf("commit scoring of %s: %w", v, err)
 	}
-	return &scoreSummary{Model: m.Name, Version: m.Version, Mode: s.mode, RowsRead: ds.read, RowsUsed: int64(ds.n()),
-		RowsSkipped: ds.skipped, Table: v.Results().Sanitize()}, nil
+	return &scoreSummary{Model: m.Name, Version: m.Version, Mode: s.mode, RowsRead: counts.read, RowsUsed: res.rows,
+		RowsSkipped: counts.skipped, Table: v.Results().Sanitize()}, nil
 }
 
 // matchesModel checks that a scoring query returns the model's key, of the
@@ -184,41 +215,32 @@ func quoted(names []string) string {
 	return strings.Join(q, ", ")
 }
 
-// scoreStored applies a stored version to rows: the version's own scaling,
-// then its fitted-space parameters, exactly as the fit scored its rows.
-func scoreStored(m *schema.Model, comps []schema.Component, ds *dataset) (*fitted, error) {
+// storedModel restores a stored version for scoring: the version's own
+// scaling is applied to the rows as they are read, then its fitted-space
+// parameters score them, exactly as the fit scored its rows. Its
+// components are in cluster order, so the j-th is cluster comps[j].Cluster.
+func storedModel(m *schema.Model, comps []schema.Component) (*fitted, error) {
 	d := len(m.Features)
-	sc := fit.Scaling{Method: m.Scale, Center: m.Center, Spread: m.Spread}
-	if m.Scale != "none" {
-		sc.Apply(ds.x, ds.x)
-	}
-	src := fit.NewDense(ds.x, d)
 	numbers := make([]int32, len(comps))
 	for j, c := range comps {
 		numbers[j] = int32(c.Cluster)
 	}
-	var out *fitted
+	out := &fitted{components: comps, numbers: numbers, floor: m.MembershipFloor}
 	switch m.Method {
 	case "kmeans":
 		centers := make([]float64, 0, len(comps)*d)
 		for _, c := range comps {
 			centers = append(centers, c.FittedCenter...)
 		}
-		out = scoreKMeans(&fit.KMeansResult{K: len(comps), D: d, Centers: centers}, src, sc)
+		out.model = &scoringModel{k: len(comps), d: d, centers: centers}
 	case "gmm":
 		mx, err := restoreMixture(m, comps)
 		if err != nil {
 			return nil, err
 		}
-		out = scoreMixture(mx, src, sc, m.MembershipFloor)
+		out.model = &scoringModel{k: len(comps), d: d, mx: mx}
 	default:
 		return nil, errors.New("unknown method " + m.Method)
 	}
-	// scoreKMeans and scoreMixture number clusters by position; positions
-	// here are the stored clusters in cluster order.
-	for i, c := range out.cluster {
-		out.cluster[i] = numbers[c-1]
-	}
-	out.numbers = numbers
 	return out, nil
 }
