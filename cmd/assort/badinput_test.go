@@ -170,3 +170,38 @@ func assertNothingWritten(t *testing.T, w *workspace, before string) {
 		t.Errorf("%d registry rows written", n)
 	}
 }
+
+// TestKMeansAlgorithms fits the same rows with each k-means algorithm and
+// seeding the flags offer: Hamerly's bounds give plain Lloyd's result
+// exactly, and the records say what ran.
+func TestKMeansAlgorithms(t *testing.T) {
+	w := newWorkspace(t)
+	w.blobs(t, "pts", []int{300, 200, 100}, 13)
+	q := "SELECT id, x, y FROM " + w.table("pts")
+	for _, alg := range []string{"lloyd", "hamerly", "minibatch"} {
+		mustAssort(t, w.args("fit", "alg_"+alg, "--query", q, "--key", "id", "--k", "3", "--algorithm", alg, "--seeding", "kmeans||")...)
+		var got string
+		w.scalar(t, "SELECT algorithm FROM "+w.table("models")+" WHERE name = $1", &got, "alg_"+alg)
+		if got != alg+", kmeans|| seeding" {
+			t.Errorf("--algorithm %s recorded %q", alg, got)
+		}
+	}
+	var lloyd, hamerly, mini float64
+	w.scalar(t, "SELECT inertia FROM "+w.table("models")+" WHERE name = 'alg_lloyd'", &lloyd)
+	w.scalar(t, "SELECT inertia FROM "+w.table("models")+" WHERE name = 'alg_hamerly'", &hamerly)
+	w.scalar(t, "SELECT inertia FROM "+w.table("models")+" WHERE name = 'alg_minibatch'", &mini)
+	if hamerly != lloyd || mini > 1.01*lloyd {
+		t.Errorf("inertia: lloyd %v, hamerly %v (want equal), minibatch %v (want within 1%%)", lloyd, hamerly, mini)
+	}
+	var diff int
+	w.scalar(t, "SELECT count(*) FROM "+w.table("alg_lloyd")+" a JOIN "+w.table("alg_hamerly")+" b USING (id) WHERE a.cluster <> b.cluster OR a.distance <> b.distance", &diff)
+	if diff != 0 {
+		t.Errorf("%d rows differ between lloyd and hamerly", diff)
+	}
+	for _, bad := range [][]string{{"--algorithm", "elkan"}, {"--seeding", "random"}, {"--method", "gmm", "--algorithm", "lloyd"}} {
+		code, _, stderr := assort(t, w.args(append([]string{"fit", "x", "--query", q, "--key", "id", "--k", "3"}, bad...)...)...)
+		if code != exitUsage || !strings.Contains(stderr, bad[len(bad)-2]) {
+			t.Errorf("%v: exit %d, stderr:\n%s", bad, code, stderr)
+		}
+	}
+}

@@ -19,6 +19,8 @@ type fitSpec struct {
 	key       string
 	features  []string
 	method    string
+	algorithm string // kmeans: "auto" or a fit.Algorithm*
+	seeding   string // kmeans: "auto" or a fit.Seeding*
 	kText     string
 	ks        fit.KRange
 	criterion string
@@ -75,6 +77,8 @@ func parseFit(e *env, args []string) (*fitSpec, error) {
 	fs.StringVar(&s.key, "key", "", "column that identifies a row; its type is kept (required)")
 	fs.StringSliceVar(&s.features, "features", nil, "feature columns, comma-separated (default: every column but the key)")
 	fs.StringVar(&s.method, "method", "kmeans", "kmeans or gmm (Gaussian mixture)")
+	fs.StringVar(&s.algorithm, "algorithm", "auto", "kmeans: lloyd, hamerly (exact, same result as lloyd, fewer distances), minibatch (approximate, for very large tables) or auto")
+	fs.StringVar(&s.seeding, "seeding", "auto", "kmeans: kmeans++ (greedy), kmeans|| (few passes, for large tables) or auto (kmeans|| from 10^6 rows)")
 	fs.StringVar(&s.kText, "k", "", "number of clusters (required): 6, a range 2:12, or a list 3,5,8; with several, --criterion chooses")
 	fs.StringVar(&s.criterion, "criterion", "bic", "choice among several k: bic, aic, icl (gmm) or silhouette (kmeans)")
 	fs.Uint64Var(&s.seed, "seed", 1, "seed of every random choice; the same seed gives the same result")
@@ -180,7 +184,22 @@ func (s *fitSpec) check(changed func(string) bool) error {
 				return usagef("--%s applies to --method gmm only", f)
 			}
 		}
+		switch s.algorithm {
+		case "auto", fit.AlgorithmLloyd, fit.AlgorithmHamerly, fit.AlgorithmMiniBatch:
+		default:
+			return usagef("--algorithm must be lloyd, hamerly, minibatch or auto, got %q", s.algorithm)
+		}
+		switch s.seeding {
+		case "auto", fit.SeedingGreedy, fit.SeedingScalable:
+		default:
+			return usagef("--seeding must be kmeans++, kmeans|| or auto, got %q", s.seeding)
+		}
 	case "gmm":
+		for _, f := range []string{"algorithm", "seeding"} {
+			if changed(f) {
+				return usagef("--%s applies to --method kmeans only", f)
+			}
+		}
 		switch s.covariance {
 		case "full", "diag", "spherical", "pooled":
 		default:

@@ -235,7 +235,10 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	if err := checkpoint(ctx, e, phaseFit); err != nil {
 		return nil, err
 	}
-	algorithm := plan.algorithm(rd.resident(), int64(n))
+	algorithm, err := chooseAlgorithm(s.algorithm, plan.algorithm(rd.resident(), int64(n)))
+	if err != nil {
+		return nil, err
+	}
 	var sil *fit.Dense
 	if s.method == "kmeans" {
 		if sil, err = silhouetteSample(ctx, src, s.seed); err != nil {

@@ -34,7 +34,7 @@ func fitCandidate(ctx context.Context, s *fitSpec, src fit.Source, k int, algori
 	case "kmeans":
 		res, err := fit.KMeans(ctx, src, fit.KMeansConfig{
 			K: k, Seed: s.seed, Restarts: s.restarts, MaxIter: s.maxIter, Tol: s.tol, Workers: s.workers,
-			Algorithm: algorithm,
+			Algorithm: algorithm, Seeding: seeding(s.seeding),
 		})
 		if err != nil {
 			return nil, err
@@ -91,6 +91,14 @@ func silhouetteSample(ctx context.Context, src fit.Source, seed uint64) (*fit.De
 		res.Add(rows)
 	}
 	return res.Sample(), nil
+}
+
+// seeding turns --seeding into fit's setting; "auto" is fit's default.
+func seeding(flag string) string {
+	if flag == "auto" {
+		return ""
+	}
+	return flag
 }
 
 // iterations, converged and stop describe the candidate's winning run.

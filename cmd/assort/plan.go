@@ -280,12 +280,27 @@ func (p *memPlan) checkSample(m int64, flag string) error {
 		flag, dbio.FormatSize(need), m, p.d, p.perRow(false), dbio.FormatSize(p.budget), dbio.FormatSize(need))
 }
 
-// algorithm is the k-means iterations that fit beside resident bytes.
+// algorithm is the k-means iterations that fit beside resident bytes: ""
+// (fit's default by k·d) when Hamerly's bounds fit, else plain Lloyd.
 func (p *memPlan) algorithm(resident, n int64) string {
 	if p.hamerly(resident, n) {
-		return fit.AlgorithmHamerly
+		return ""
 	}
 	return fit.AlgorithmLloyd
+}
+
+// chooseAlgorithm combines --algorithm with what the memory plan allows
+// (planned: "" when Hamerly's bounds fit, else lloyd).
+func chooseAlgorithm(flag, planned string) (string, error) {
+	switch flag {
+	case "auto":
+		return planned, nil
+	case fit.AlgorithmHamerly:
+		if planned == fit.AlgorithmLloyd {
+			return "", fmt.Errorf("--algorithm hamerly needs 16 more bytes a row than --memory leaves; raise --memory or use --algorithm lloyd (the same result)")
+		}
+	}
+	return flag, nil
 }
 
 // limitHeap sets the Go runtime's soft memory limit to budget plus
