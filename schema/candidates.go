@@ -23,6 +23,24 @@ type Candidate struct {
 	Chosen        bool     `json:"chosen"`
 }
 
+// Criterion returns the candidate's value of a criterion (bic, aic, icl,
+// silhouette or inertia), nil where it does not apply.
+func (c Candidate) Criterion(name string) *float64 {
+	switch name {
+	case "bic":
+		return c.BIC
+	case "aic":
+		return c.AIC
+	case "icl":
+		return c.ICL
+	case "silhouette":
+		return c.Silhouette
+	case "inertia":
+		return c.Inertia
+	}
+	return nil
+}
+
 // RecordCandidates stores the candidates of m's version and the criterion
 // that chose among them. Run it in the version's write transaction.
 func (r Registry) RecordCandidates(ctx context.Context, tx pgx.Tx, m *Model, criterion string, cs []Candidate) error {

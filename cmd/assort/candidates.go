@@ -34,25 +34,13 @@ func sparkline(values []float64) string {
 	return string(out)
 }
 
-// criterionValue picks a criterion's value from a candidate row.
+// criterionValue picks a criterion's value from a candidate row, NaN when
+// it does not apply.
 func criterionValue(c schema.Candidate, criterion string) float64 {
-	var p *float64
-	switch criterion {
-	case "bic":
-		p = c.BIC
-	case "aic":
-		p = c.AIC
-	case "icl":
-		p = c.ICL
-	case "silhouette":
-		p = c.Silhouette
-	case "inertia":
-		p = c.Inertia
+	if p := c.Criterion(criterion); p != nil {
+		return *p
 	}
-	if p == nil {
-		return math.NaN()
-	}
-	return *p
+	return math.NaN()
 }
 
 // writeCandidates prints the candidates of a version, the chosen one

@@ -435,12 +435,7 @@ func keyError(key string, err error) error {
 func candidateRows(cs []*candidate, chosen int) []schema.Candidate {
 	rows := make([]schema.Candidate, len(cs))
 	for i, c := range cs {
-		it, conv, _ := c.iterations()
-		rows[i] = schema.Candidate{
-			K: c.k, Inertia: c.inertia, LogLikelihood: c.logL, Params: c.params,
-			BIC: c.bic, AIC: c.aic, ICL: c.icl, Silhouette: c.silhouette,
-			Iterations: it, Converged: conv, Chosen: i == chosen,
-		}
+		rows[i] = c.row(i == chosen)
 	}
 	return rows
 }

@@ -112,22 +112,22 @@ func (c *candidate) iterations() (int, bool, string) {
 // criterion returns the candidate's value of a criterion and whether lower
 // is better; ok is false when the criterion is missing or not finite.
 func (c *candidate) criterion(name string) (v float64, lowerBetter, ok bool) {
-	var p *float64
-	lowerBetter = true
-	switch name {
-	case "bic":
-		p = c.bic
-	case "aic":
-		p = c.aic
-	case "icl":
-		p = c.icl
-	case "silhouette":
-		p, lowerBetter = c.silhouette, false
-	}
+	lowerBetter = name != "silhouette"
+	p := c.row(false).Criterion(name)
 	if p == nil || math.IsNaN(*p) || math.IsInf(*p, 0) {
 		return 0, lowerBetter, false
 	}
 	return *p, lowerBetter, true
+}
+
+// row is the candidate as a registry row.
+func (c *candidate) row(chosen bool) schema.Candidate {
+	it, conv, _ := c.iterations()
+	return schema.Candidate{
+		K: c.k, Inertia: c.inertia, LogLikelihood: c.logL, Params: c.params,
+		BIC: c.bic, AIC: c.aic, ICL: c.icl, Silhouette: c.silhouette,
+		Iterations: it, Converged: conv, Chosen: chosen,
+	}
 }
 
 // record copies the chosen candidate's figures into the model row.
