@@ -134,18 +134,11 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	reg := schema.Registry{Schema: e.schema}
 
 	// The writer connection holds the model's lock for the whole run.
-	w, err := e.connect(ctx, "fit "+s.name)
+	w, release, err := lockedConn(ctx, e, "fit", s.name, s.wait)
 	if err != nil {
 		return nil, err
 	}
-	defer w.Close(context.WithoutCancel(ctx))
-	if err := schema.Check(ctx, w, e.schema); err != nil {
-		return nil, err
-	}
-	if err := lockModel(ctx, w, reg, s.name, s.wait); err != nil {
-		return nil, err
-	}
-	defer reg.Unlock(context.WithoutCancel(ctx), w, s.name)
+	defer release()
 	if err := reg.CheckFree(ctx, w, s.name); err != nil {
 		return nil, err
 	}

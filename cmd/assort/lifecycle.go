@@ -12,19 +12,12 @@ import (
 // modelTx runs fn in one transaction on a fresh connection that holds the
 // model's lock, after checking the registry.
 func modelTx(ctx context.Context, e *env, role, model string, wait time.Duration, fn func(tx pgx.Tx, reg schema.Registry) error) error {
-	conn, err := e.connect(ctx, role+" "+model)
+	conn, release, err := lockedConn(ctx, e, role, model, wait)
 	if err != nil {
 		return err
 	}
-	defer conn.Close(context.WithoutCancel(ctx))
-	if err := schema.Check(ctx, conn, e.schema); err != nil {
-		return err
-	}
+	defer release()
 	reg := schema.Registry{Schema: e.schema}
-	if err := lockModel(ctx, conn, reg, model, wait); err != nil {
-		return err
-	}
-	defer reg.Unlock(context.WithoutCancel(ctx), conn, model)
 	tx, err := conn.Begin(ctx)
 	if err != nil {
 		return err

@@ -112,3 +112,28 @@ func abandonRun(ctx context.Context, e *env, w *pgx.Conn, reg schema.Registry, m
 	defer c.Close(ctx)
 	return reg.Abandon(ctx, c, model, version)
 }
+
+// lockedConn opens the connection that holds a model's lock for a whole
+// run: it connects (named role and model in pg_stat_activity), checks that
+// the registry is current, and takes the lock, waiting up to wait. release
+// gives the lock back and closes the connection.
+func lockedConn(ctx context.Context, e *env, role, model string, wait time.Duration) (conn *pgx.Conn, release func(), err error) {
+	conn, err = e.connect(ctx, role+" "+model)
+	if err != nil {
+		return nil, nil, err
+	}
+	bg := context.WithoutCancel(ctx)
+	reg := schema.Registry{Schema: e.schema}
+	if err := schema.Check(ctx, conn, e.schema); err != nil {
+		conn.Close(bg)
+		return nil, nil, err
+	}
+	if err := lockModel(ctx, conn, reg, model, wait); err != nil {
+		conn.Close(bg)
+		return nil, nil, err
+	}
+	return conn, func() {
+		reg.Unlock(bg, conn, model)
+		conn.Close(bg)
+	}, nil
+}

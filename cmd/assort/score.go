@@ -94,18 +94,11 @@ type scoreSummary struct {
 // into that version's tables in one transaction.
 func scoreJob(ctx context.Context, e *env, s *scoreSpec) (*scoreSummary, error) {
 	reg := schema.Registry{Schema: e.schema}
-	w, err := e.connect(ctx, "score "+s.name)
+	w, release, err := lockedConn(ctx, e, "score", s.name, s.wait)
 	if err != nil {
 		return nil, err
 	}
-	defer w.Close(context.WithoutCancel(ctx))
-	if err := schema.Check(ctx, w, e.schema); err != nil {
-		return nil, err
-	}
-	if err := lockModel(ctx, w, reg, s.name, s.wait); err != nil {
-		return nil, err
-	}
-	defer reg.Unlock(context.WithoutCancel(ctx), w, s.name)
+	defer release()
 	m, comps, err := reg.Model(ctx, w, s.name, s.version)
 	if err != nil {
 		return nil, err
