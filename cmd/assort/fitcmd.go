@@ -82,7 +82,7 @@ func parseFit(e *env, args []string) (*fitSpec, error) {
 	fs.StringVar(&s.kText, "k", "", "number of clusters (required): 6, a range 2:12, or a list 3,5,8; with several, --criterion chooses")
 	fs.StringVar(&s.criterion, "criterion", "bic", "choice among several k: bic, aic, icl (gmm) or silhouette (kmeans)")
 	fs.Uint64Var(&s.seed, "seed", 1, "seed of every random choice; the same seed gives the same result")
-	fs.IntVar(&s.restarts, "restarts", 0, "independent starts, the best kept (default 10 for kmeans, 4 for gmm)")
+	fs.IntVar(&s.restarts, "restarts", 0, "independent starts, the best kept (default: kmeans 10 below 10^5 rows, 4 below 10^6, 1 from there; gmm 4 below 10^6 rows, 2 from there)")
 	fs.IntVar(&s.maxIter, "max-iter", 0, "iteration limit per start (default 300 for kmeans, 200 for gmm)")
 	fs.Float64Var(&s.tol, "tol", 0, "convergence tolerance (default 1e-4 for kmeans: centre shift relative to total variance; 1e-6 for gmm: change of mean log-likelihood per row)")
 	fs.StringVar(&s.scale, "scale", "none", "feature scaling before fitting: none, standard (mean, standard deviation) or robust (median, interquartile range)")

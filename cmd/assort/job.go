@@ -200,6 +200,11 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	}
 	src, passes := rd.scaled(rt, scaling)
 	passes.workers = workerCount(s.workers)
+	if s.restarts == 0 {
+		// Record the number of starts actually made, for this run and any
+		// retry of it (the rows are the same).
+		s.restarts = defaultRestarts(s.method, n)
+	}
 
 	m := &schema.Model{
 		Name: s.name, Method: s.method, K: s.ks[0], Features: rt.names(),
@@ -284,6 +289,7 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	}
 	written = true
 	mark("write")
+	times["write_copy"] = out.copySeconds
 	if s.noPublish {
 		e.logf("wrote %s in %.2fs; not published (publish it with: assort publish %s)", m.ResultTable, times["write"], v)
 	} else {
@@ -376,6 +382,25 @@ func scaleFeatures(ctx context.Context, e *env, s *fitSpec, names []string, src 
 	return sc, nil
 }
 
+// defaultRestarts is the number of starts when --restarts is not given:
+// k-means makes 10 below 10⁵ rows, 4 below 10⁶ and 1 from there, where
+// every start costs full passes over a large table and greedy k-means++
+// seeding on that many rows varies little between starts; mixtures make 4
+// below 10⁶ rows and 2 from there.
+func defaultRestarts(method string, n int) int {
+	switch {
+	case method == "gmm" && n < 1_000_000:
+		return 4
+	case method == "gmm":
+		return 2
+	case n < 100_000:
+		return 10
+	case n < 1_000_000:
+		return 4
+	}
+	return 1
+}
+
 // fitted is a fitted model ready to score rows: its components in
 // original units, the model in the units the fit used, and the numbers its
 // clusters are published under. It holds nothing per row: the scoring
@@ -392,6 +417,9 @@ type fitted struct {
 	criterion  string
 	// scored is the number of rows the results pass wrote.
 	scored int64
+	// copySeconds is the time of the results COPY alone, without the
+	// primary key, ANALYZE and registry rows that follow it.
+	copySeconds float64
 }
 
 // mixture reports whether the model is a mixture, with memberships.

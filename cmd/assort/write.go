@@ -3,6 +3,7 @@ package main
 import (
 	"context"
 	"fmt"
+	"time"
 
 	"github.com/jackc/pgx/v5"
 
@@ -38,10 +39,12 @@ func writeVersion(ctx context.Context, e *env, conn *pgx.Conn, reg schema.Regist
 	if err := checkpoint(ctx, e, phaseWrite); err != nil {
 		return err
 	}
+	start := time.Now()
 	res, err := copyResults(ctx, e, conn, v.Results(), key.Name, rp, out)
 	if err != nil {
 		return err
 	}
+	out.copySeconds = time.Since(start).Seconds()
 	out.scored = res.rows
 	out.setSizes(res.sizes, res.rows)
 	if _, err := tx.Exec(ctx, schema.ResultsKeyDDL(v, key.Name)); err != nil {
