@@ -67,7 +67,7 @@ func (b *bench) derive() {
 	v, miss = perIter(benchLloydPass)
 	r.addRow("  Lloyd assignment pass alone", v, "s", lloydFloor, "n·k·d madds", nil, miss)
 	v, miss = perIter(benchHamerly)
-	r.addRow("  Hamerly iteration (assort's default)", v, "s", lloydFloor, "n·k·d madds", nil, miss)
+	r.addRow("  Hamerly iteration (exact, same result)", v, "s", lloydFloor, "n·k·d madds", nil, miss)
 	// E-step: a triangular solve, d(d+1)/2, and a squared norm, d, per row
 	// and component; M-step: the mean, d, and the scatter's triangle,
 	// d(d+1)/2. The exponentials are not counted.

@@ -19,7 +19,7 @@ import (
 const (
 	benchLloydPass      = "BenchmarkLloydPass"        // one plain assignment pass, random centres
 	benchLloydIteration = "BenchmarkLloydIteration"   // plain Lloyd iterations to convergence, blobs
-	benchHamerly        = "BenchmarkHamerlyIteration" // the same with Hamerly's bounds (assort's default)
+	benchHamerly        = "BenchmarkHamerlyIteration" // the same with Hamerly's bounds
 	benchMixture        = "BenchmarkMixtureIteration/n=1000000/d=8/k=8/full"
 	benchSubK           = "k=8"
 
