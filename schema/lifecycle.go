@@ -28,14 +28,36 @@ func (r Registry) Published(ctx context.Context, q Querier, model string) (int, 
 	return v, nil
 }
 
-// dropObjects drops the tables of version v.
-func dropObjects(ctx context.Context, tx pgx.Tx, v Version) error {
+// dropObjects drops the tables and scoring functions of version v, whose
+// model has d features and the given method. A user's view on one of them
+// makes this fail rather than cascade.
+func dropObjects(ctx context.Context, tx pgx.Tx, v Version, d int, method string) error {
+	for _, stmt := range DropFunctionsDDL(v, d, method) {
+		if _, err := tx.Exec(ctx, stmt); err != nil {
+			return fmt.Errorf("drop the scoring functions of %s: %w", v, err)
+		}
+	}
 	for _, t := range []pgx.Identifier{v.Memberships(), v.Results()} {
 		if _, err := tx.Exec(ctx, "DROP TABLE IF EXISTS "+t.Sanitize()); err != nil {
 			return fmt.Errorf("drop %s: %w", t.Sanitize(), err)
 		}
 	}
 	return nil
+}
+
+// versionShape is what dropping a version's objects needs to know.
+type versionShape struct {
+	n      int
+	d      int
+	method string
+}
+
+func scanShapes(rows pgx.Rows) ([]versionShape, error) {
+	return pgx.CollectRows(rows, func(r pgx.CollectableRow) (versionShape, error) {
+		var s versionShape
+		err := r.Scan(&s.n, &s.d, &s.method)
+		return s, err
+	})
 }
 
 // Prune drops the result tables of the ready versions of model older than
@@ -49,22 +71,23 @@ func (r Registry) Prune(ctx context.Context, tx pgx.Tx, model string, keep int) 
 	if err != nil {
 		return nil, fmt.Errorf("prune %s: %w", model, err)
 	}
-	rows, err := tx.Query(ctx, "SELECT version FROM "+r.table("models")+
+	rows, err := tx.Query(ctx, "SELECT version, cardinality(features), method FROM "+r.table("models")+
 		" WHERE name = $1 AND status = 'ready' ORDER BY version DESC OFFSET $2 FOR UPDATE", model, keep)
 	if err != nil {
 		return nil, fmt.Errorf("prune %s: %w", model, err)
 	}
-	old, err := pgx.CollectRows(rows, pgx.RowTo[int])
+	old, err := scanShapes(rows)
 	if err != nil {
 		return nil, fmt.Errorf("prune %s: %w", model, err)
 	}
 	var pruned []int
-	for _, n := range old {
+	for _, o := range old {
+		n := o.n
 		if n == pub {
 			continue
 		}
 		v := Version{Schema: r.Schema, Model: model, N: n}
-		if err := dropObjects(ctx, tx, v); err != nil {
+		if err := dropObjects(ctx, tx, v, o.d, o.method); err != nil {
 			return nil, err
 		}
 		if _, err := tx.Exec(ctx, "UPDATE "+r.table("models")+" SET status = 'pruned' WHERE name = $1 AND version = $2", model, n); err != nil {
@@ -78,8 +101,10 @@ func (r Registry) Prune(ctx context.Context, tx pgx.Tx, model string, keep int) 
 // Drop removes version v: its tables and its registry rows. The published
 // version cannot be dropped; publish another one first.
 func (r Registry) Drop(ctx context.Context, tx pgx.Tx, v Version) error {
-	var status string
-	err := tx.QueryRow(ctx, "SELECT status FROM "+r.table("models")+" WHERE name = $1 AND version = $2 FOR UPDATE", v.Model, v.N).Scan(&status)
+	var status, method string
+	var d int
+	err := tx.QueryRow(ctx, "SELECT status, cardinality(features), method FROM "+r.table("models")+" WHERE name = $1 AND version = $2 FOR UPDATE",
+		v.Model, v.N).Scan(&status, &d, &method)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return fmt.Errorf("%w: %s", ErrNoModel, v)
 	}
@@ -93,7 +118,7 @@ func (r Registry) Drop(ctx context.Context, tx pgx.Tx, v Version) error {
 	if pub == v.N {
 		return fmt.Errorf("drop %s: it is the published version; publish another version first", v)
 	}
-	if err := dropObjects(ctx, tx, v); err != nil {
+	if err := dropObjects(ctx, tx, v, d, method); err != nil {
 		return err
 	}
 	if _, err := tx.Exec(ctx, "DELETE FROM "+r.table("models")+" WHERE name = $1 AND version = $2", v.Model, v.N); err != nil {
@@ -105,11 +130,11 @@ func (r Registry) Drop(ctx context.Context, tx pgx.Tx, v Version) error {
 // DropModel removes every version of model, its stable views and its
 // registry rows.
 func (r Registry) DropModel(ctx context.Context, tx pgx.Tx, model string) error {
-	rows, err := tx.Query(ctx, "SELECT version FROM "+r.table("models")+" WHERE name = $1 FOR UPDATE", model)
+	rows, err := tx.Query(ctx, "SELECT version, cardinality(features), method FROM "+r.table("models")+" WHERE name = $1 FOR UPDATE", model)
 	if err != nil {
 		return fmt.Errorf("drop %s: %w", model, err)
 	}
-	versions, err := pgx.CollectRows(rows, pgx.RowTo[int])
+	versions, err := scanShapes(rows)
 	if err != nil {
 		return fmt.Errorf("drop %s: %w", model, err)
 	}
@@ -121,8 +146,13 @@ func (r Registry) DropModel(ctx context.Context, tx pgx.Tx, model string) error 
 			return fmt.Errorf("drop %s: %w", view.Sanitize(), err)
 		}
 	}
-	for _, n := range versions {
-		if err := dropObjects(ctx, tx, Version{Schema: r.Schema, Model: model, N: n}); err != nil {
+	for _, o := range versions {
+		for _, stmt := range DropStableFunctionsDDL(r.Schema, model, o.d, o.method) {
+			if _, err := tx.Exec(ctx, stmt); err != nil {
+				return fmt.Errorf("drop the scoring functions of %s: %w", model, err)
+			}
+		}
+		if err := dropObjects(ctx, tx, Version{Schema: r.Schema, Model: model, N: o.n}, o.d, o.method); err != nil {
 			return err
 		}
 	}

@@ -52,6 +52,8 @@ type Model struct {
 	MembershipFloor float64
 	Events          []string
 
+	Functions bool // the version has SQL scoring functions
+
 	RenumberedAgainst *int     // published version the clusters were matched to
 	RenumberBasis     string   // "centres"
 	RenumberCost      *float64 // total cost of the matching
@@ -155,14 +157,14 @@ func (r Registry) Finish(ctx context.Context, tx pgx.Tx, m *Model, comps []Compo
 		rows_read = $6, rows_used = $7, rows_skipped = $8, inertia = $9,
 		iterations = $10, converged = $11, stop_reason = $12, result_table = $13,
 		log_likelihood = $14, bic = $15, aic = $16, params = $17, events = $18,
-		k = $19, renumbered_against = $20, renumber_basis = $21, renumber_cost = $22,
+		k = $19, renumbered_against = $20, renumber_basis = $21, renumber_cost = $22, functions = $23,
 		finished_at = clock_timestamp()
 		WHERE name = $1 AND version = $2 AND status = 'running'`,
 		m.Name, m.Version, m.Algorithm, m.Center, m.Spread,
 		m.RowsRead, m.RowsUsed, m.RowsSkipped, m.Inertia,
 		m.Iterations, m.Converged, m.StopReason, m.ResultTable,
 		m.LogLikelihood, m.BIC, m.AIC, nullZero(float64(m.Params), m.Method == "gmm"), m.Events, m.K,
-		m.RenumberedAgainst, nullText(m.RenumberBasis), m.RenumberCost)
+		m.RenumberedAgainst, nullText(m.RenumberBasis), m.RenumberCost, m.Functions)
 	if err != nil {
 		return fmt.Errorf("record %s@%d: %w", m.Name, m.Version, err)
 	}
@@ -232,7 +234,7 @@ const modelColumns = `m.name, m.version, m.status, m.method, coalesce(m.algorith
 	p.version IS NOT DISTINCT FROM m.version, p.published_at, coalesce(p.published_by, ''),
 	coalesce(m.covariance, ''), m.log_likelihood, m.bic, m.aic, coalesce(m.params, 0),
 	coalesce(m.reg, 0), coalesce(m.membership_floor, 0), coalesce(m.events, '{}'),
-	m.renumbered_against, coalesce(m.renumber_basis, ''), m.renumber_cost`
+	m.renumbered_against, coalesce(m.renumber_basis, ''), m.renumber_cost, m.functions`
 
 func (r Registry) modelsFrom() string {
 	return " FROM " + r.table("models") + " m LEFT JOIN LATERAL (SELECT version, published_at, published_by FROM " +
@@ -251,7 +253,7 @@ func scanModel(row pgx.Row) (*Model, error) {
 		&m.Published, &pubAt, &m.PublishedBy,
 		&m.Covariance, &m.LogLikelihood, &m.BIC, &m.AIC, &m.Params,
 		&m.Reg, &m.MembershipFloor, &m.Events,
-		&m.RenumberedAgainst, &m.RenumberBasis, &m.RenumberCost)
+		&m.RenumberedAgainst, &m.RenumberBasis, &m.RenumberCost, &m.Functions)
 	if err != nil {
 		return nil, err
 	}

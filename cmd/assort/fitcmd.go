@@ -47,12 +47,13 @@ type fitSpec struct {
 	floor      float64
 	init       string
 
-	json       bool
-	wait       time.Duration
-	retries    int
-	noPublish  bool
-	labels     string
-	noRenumber bool
+	json        bool
+	wait        time.Duration
+	retries     int
+	noPublish   bool
+	labels      string
+	noRenumber  bool
+	noFunctions bool
 }
 
 const fitSynopsis = "assort fit NAME --query SQL --key COLUMN --k K [flags]"
@@ -103,6 +104,7 @@ func parseFit(e *env, args []string) (*fitSpec, error) {
 	fs.IntVar(&s.retries, "retries", 0, "after a lost connection or server restart, run the whole job again up to this many times, with backoff")
 	fs.StringVar(&s.labels, "labels", "", "after fitting, compare the clusters with this labelling: a query returning (key, label)")
 	fs.BoolVar(&s.noRenumber, "no-renumber", false, "number clusters by size instead of matching them to the published version's")
+	fs.BoolVar(&s.noFunctions, "no-functions", false, "create no SQL scoring functions (NAME_vV_cluster...) for the new version")
 	fs.BoolVar(&s.noPublish, "no-publish", false, "leave the new version ready but keep the stable views on the published one")
 	if err := e.parse(fs, args); err != nil {
 		return nil, err

@@ -284,7 +284,7 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	src, cands, chosen = nil, nil, nil
 
 	m.ResultTable = v.Results().Sanitize()
-	if err := writeVersion(ctx, e, w, reg, v, m, rt.key, passes, out, !s.noPublish); err != nil {
+	if err := writeVersion(ctx, e, w, reg, v, m, rt.key, passes, out, !s.noPublish, !s.noFunctions); err != nil {
 		return nil, err
 	}
 	written = true

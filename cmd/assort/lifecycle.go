@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"fmt"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -47,8 +48,14 @@ func runPublish(ctx context.Context, e *env, args []string) error {
 	}
 	v := schema.Version{Schema: e.schema, Model: name, N: version}
 	err = modelTx(ctx, e, "publish", name, *wait, func(tx pgx.Tx, reg schema.Registry) error {
-		m, _, err := reg.Model(ctx, tx, name, version)
+		m, comps, err := reg.Model(ctx, tx, name, version)
 		if err != nil {
+			return err
+		}
+		if m.Status != "ready" {
+			return fmt.Errorf("publish %s: the version is %s, only a ready version can be published", v, m.Status)
+		}
+		if err := publishFunctions(ctx, tx, reg, v, m, comps); err != nil {
 			return err
 		}
 		return reg.Publish(ctx, tx, v, m.Method == "gmm")

@@ -55,6 +55,18 @@ func TestPublishPruneDrop(t *testing.T) {
 	if tables != "life_v1,life_v4" {
 		t.Fatalf("result tables after prune: %s", tables)
 	}
+	// The scoring functions went with their tables, and the stable
+	// forwarder answers for the published version (v1).
+	var funcs string
+	w.scalar(t, `SELECT string_agg(proname, ',' ORDER BY proname) FROM pg_proc WHERE pronamespace = $1::regnamespace AND proname LIKE 'life%'`, &funcs, w.schema)
+	if funcs != "life_cluster,life_v1_cluster,life_v4_cluster" {
+		t.Fatalf("scoring functions after prune: %s", funcs)
+	}
+	var disagree int
+	w.scalar(t, "SELECT count(*) FROM "+w.table("pts")+" p JOIN "+w.table("life")+" r USING (id) WHERE "+w.table("life_cluster")+"(p.x, p.y) <> r.cluster", &disagree)
+	if disagree != 0 {
+		t.Fatalf("%d rows where the stable scoring function disagrees with the published results", disagree)
+	}
 
 	bad := []struct {
 		args []string
@@ -84,5 +96,9 @@ func TestPublishPruneDrop(t *testing.T) {
 	w.scalar(t, `SELECT coalesce(string_agg(relname, ','), '') FROM pg_class WHERE relnamespace = $1::regnamespace AND relname LIKE 'life%'`, &tables, w.schema)
 	if tables != "" {
 		t.Fatalf("relations left after dropping the model: %s", tables)
+	}
+	w.scalar(t, `SELECT coalesce(string_agg(proname, ','), '') FROM pg_proc WHERE pronamespace = $1::regnamespace AND proname LIKE 'life%'`, &funcs, w.schema)
+	if funcs != "" {
+		t.Fatalf("functions left after dropping the model: %s", funcs)
 	}
 }

@@ -27,7 +27,7 @@ type rowPasses struct {
 // any point leaves nothing visible. The rows are scored as they are
 // written, in pipelined passes over rp: one for the results, and for a
 // mixture a second for the memberships.
-func writeVersion(ctx context.Context, e *env, conn *pgx.Conn, reg schema.Registry, v schema.Version, m *schema.Model, key dbio.Column, rp rowPasses, out *fitted, publish bool) error {
+func writeVersion(ctx context.Context, e *env, conn *pgx.Conn, reg schema.Registry, v schema.Version, m *schema.Model, key dbio.Column, rp rowPasses, out *fitted, publish, functions bool) error {
 	tx, err := conn.Begin(ctx)
 	if err != nil {
 		return fmt.Errorf("write %s: %w", v, err)
@@ -73,6 +73,18 @@ func writeVersion(ctx context.Context, e *env, conn *pgx.Conn, reg schema.Regist
 	}
 	if _, err := tx.Exec(ctx, "ANALYZE "+v.Results().Sanitize()); err != nil {
 		return fmt.Errorf("analyze %s: %w", v.Results().Sanitize(), err)
+	}
+	if functions {
+		if err := createFunctions(ctx, e, tx, v, m, out.components); err != nil {
+			return err
+		}
+	}
+	if publish {
+		// Before Finish marks v ready: the forwarders compare v with the
+		// version published until now.
+		if err := publishFunctions(ctx, tx, reg, v, m, out.components); err != nil {
+			return err
+		}
 	}
 	if err := reg.Finish(ctx, tx, m, out.components); err != nil {
 		return err
