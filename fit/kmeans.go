@@ -49,6 +49,11 @@ type KMeansConfig struct {
 	// less time for the same result (BenchmarkLloydIteration,
 	// BenchmarkHamerlyIteration).
 	Algorithm string
+	// Progress, when set, is called after every iteration of every
+	// restart (see Progress); the objective is the inertia of the
+	// assignment just made, or NaN where Hamerly's bounds skipped rows and
+	// the exact sum is not known until the end.
+	Progress Progress
 	// Seeding chooses the starts: SeedingGreedy ("kmeans++": greedy
 	// k-means++, about 2K passes over the data) or SeedingScalable
 	// ("kmeans||": Bahmani et al. 2012, oversampling factor ℓ = 2K over 5
@@ -186,6 +191,11 @@ func KMeans(ctx context.Context, src Source, cfg KMeansConfig) (*KMeansResult, e
 		}
 		if err != nil {
 			return nil, fmt.Errorf("k-means: restart %d: %w", r, err)
+		}
+		run.progress = nil
+		if cfg.Progress != nil {
+			restart := r
+			run.progress = func(it int, obj float64) { cfg.Progress(restart, it, obj) }
 		}
 		var out *lloydOutcome
 		if cfg.Algorithm == AlgorithmMiniBatch {

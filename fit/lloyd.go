@@ -161,6 +161,9 @@ type lloydRun struct {
 	// ham, when set, makes every pass Hamerly's (hamerly.go): the same
 	// labels, sums and counts as plain Lloyd's from fewer distances.
 	ham *hamerlyState
+
+	// progress, when set, is told of every iteration.
+	progress func(iteration int, objective float64)
 }
 
 type lloydScratch struct {
@@ -242,6 +245,13 @@ func (r *lloydRun) lloyd(ctx context.Context, c []float64, maxIter int, tolAbs f
 			return nil, fmt.Errorf("iteration %d: %w", out.iterations+1, err)
 		}
 		out.iterations++
+		if r.progress != nil {
+			obj := r.inertia
+			if r.ham != nil {
+				obj = math.NaN() // bounds skipped rows; exact only at the end
+			}
+			r.progress(out.iterations, obj)
+		}
 		empty = empty[:0]
 		for j, n := range r.counts {
 			if n == 0 {

@@ -76,6 +76,9 @@ type MixtureConfig struct {
 	// Workers is the number of goroutines; 0 means GOMAXPROCS. The result
 	// is bit for bit the same for any value.
 	Workers int
+	// Progress, when set, is called after every E-step of every restart
+	// with the total log-likelihood (see Progress).
+	Progress Progress
 }
 
 // Defaults of MixtureConfig.

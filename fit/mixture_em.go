@@ -113,6 +113,9 @@ func (f *mixFitter) em(ctx context.Context, run *mixRun, m *mixModel) error {
 		}
 		mean := st.ll / n
 		run.trace = append(run.trace, mean)
+		if f.s.Progress != nil {
+			f.s.Progress(run.restart, it+1, st.ll)
+		}
 		stop := ""
 		switch {
 		case it > 0 && math.Abs(mean-prev) < f.s.Tol:

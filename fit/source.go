@@ -68,3 +68,9 @@ func (m *Dense) Chunk(c int, _ []float64) ([]float64, int, error) {
 	}
 	return m.X[lo*m.D : hi*m.D], lo, nil
 }
+
+// Progress reports the state of a fit after an iteration: the 0-based
+// restart, the 1-based iteration within it, and the objective (k-means:
+// inertia; mixtures: total log-likelihood), NaN when not known. It is
+// called on the fitting goroutine between passes and must return quickly.
+type Progress func(restart, iteration int, objective float64)

@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"math"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -246,7 +247,18 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 	cands := make([]*candidate, 0, len(s.ks))
 	for _, k := range s.ks {
 		fm := e.meter(fmt.Sprintf("fit k=%d, all passes", k), 0)
-		c, err := fitCandidate(ctx, s, &countedSource{Source: src, m: fm}, k, algorithm, sil)
+		objective := "inertia"
+		if s.method == "gmm" {
+			objective = "log-likelihood"
+		}
+		progress := func(restart, it int, obj float64) {
+			st := fmt.Sprintf("start %d of %d, iteration %d", restart+1, s.restarts, it)
+			if !math.IsNaN(obj) {
+				st += fmt.Sprintf(", %s %.8g", objective, obj)
+			}
+			fm.setStatus(st)
+		}
+		c, err := fitCandidate(ctx, s, &countedSource{Source: src, m: fm}, k, algorithm, sil, progress)
 		fm.end()
 		if err != nil {
 			if len(s.ks) > 1 {

@@ -27,14 +27,14 @@ type candidate struct {
 // fitCandidate fits one k with the spec's method on src (scaled rows)
 // and computes its criteria. algorithm is the k-means iterations the
 // memory plan allows; sil is the silhouette's sample of src (k-means).
-func fitCandidate(ctx context.Context, s *fitSpec, src fit.Source, k int, algorithm string, sil *fit.Dense) (*candidate, error) {
+func fitCandidate(ctx context.Context, s *fitSpec, src fit.Source, k int, algorithm string, sil *fit.Dense, progress fit.Progress) (*candidate, error) {
 	c := &candidate{k: k}
 	n, d := src.Len(), src.Dim()
 	switch s.method {
 	case "kmeans":
 		res, err := fit.KMeans(ctx, src, fit.KMeansConfig{
 			K: k, Seed: s.seed, Restarts: s.restarts, MaxIter: s.maxIter, Tol: s.tol, Workers: s.workers,
-			Algorithm: algorithm, Seeding: seeding(s.seeding),
+			Algorithm: algorithm, Seeding: seeding(s.seeding), Progress: progress,
 		})
 		if err != nil {
 			return nil, err
@@ -54,6 +54,7 @@ func fitCandidate(ctx context.Context, s *fitSpec, src fit.Source, k int, algori
 		res, err := fit.Mixture(ctx, src, fit.MixtureConfig{
 			K: k, Covariance: fit.Covariance(s.covariance), Reg: s.reg, Seed: s.seed,
 			Restarts: s.restarts, Init: s.init, MaxIter: s.maxIter, Tol: s.tol, Workers: s.workers,
+			Progress: progress,
 		})
 		if err != nil {
 			return nil, err

@@ -308,14 +308,16 @@ func TestScoreSameForAnyWorkers(t *testing.T) {
 // and 30 s left.
 func TestMeter(t *testing.T) {
 	cases := []struct {
-		name  string
-		total int64
-		quiet bool
-		want  string
+		name   string
+		total  int64
+		quiet  bool
+		status string
+		want   string
 	}{
-		{"known total", 1000, false, "write results: 250 of 1000 rows (25%), 25 rows/s, 30s left\n"},
-		{"unknown total", 0, false, "write results: 250 rows, 25 rows/s\n"},
-		{"quiet", 1000, true, ""},
+		{"known total", 1000, false, "", "write results: 250 of 1000 rows (25%), 25 rows/s, 30s left\n"},
+		{"unknown total", 0, false, "", "write results: 250 rows, 25 rows/s\n"},
+		{"with a fit's status", 0, false, "start 1 of 4, iteration 7, inertia 12.5", "write results: 250 rows, 25 rows/s; start 1 of 4, iteration 7, inertia 12.5\n"},
+		{"quiet", 1000, true, "", ""},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
@@ -326,6 +328,7 @@ func TestMeter(t *testing.T) {
 				m.start = time.Now().Add(-10 * time.Second)
 				m.last = m.start
 			}
+			m.setStatus(c.status)
 			m.add(250)
 			m.add(10) // too soon for another line
 			m.end()

@@ -37,10 +37,22 @@ type meter struct {
 	tty   bool
 	start time.Time
 
-	done  atomic.Int64
-	mu    sync.Mutex // serializes output and guards the fields below
-	last  time.Time  // when a line was last shown
-	shown bool       // a live line is on the terminal
+	done   atomic.Int64
+	mu     sync.Mutex // serializes output and guards the fields below
+	last   time.Time  // when a line was last shown
+	shown  bool       // a live line is on the terminal
+	status string     // what the pass is doing, shown after the counts
+}
+
+// setStatus sets what the pass is doing, such as a fit's iteration and
+// objective; the next progress line shows it.
+func (m *meter) setStatus(s string) {
+	if m == nil {
+		return
+	}
+	m.mu.Lock()
+	m.status = s
+	m.mu.Unlock()
 }
 
 // meter starts the progress of a pass called name over total rows (0 when
@@ -103,6 +115,9 @@ func (m *meter) line(done int64, now time.Time) string {
 	if m.total > 0 && done > 0 && done < m.total {
 		left := time.Duration(float64(m.total-done) / rate * float64(time.Second))
 		s += ", " + left.Round(time.Second).String() + " left"
+	}
+	if m.status != "" {
+		s += "; " + m.status
 	}
 	return s
 }
