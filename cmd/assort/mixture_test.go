@@ -70,42 +70,6 @@ func TestMixtureMemberships(t *testing.T) {
 	}
 }
 
-func TestMixtureBadInput(t *testing.T) {
-	w := newWorkspace(t)
-	w.blobs(t, "pts", []int{20, 20}, 3)
-	w.exec(t, "CREATE TABLE "+w.table("same")+" AS SELECT g AS id, 1.0::float8 AS x, 2.0::float8 AS y FROM generate_series(1, 30) g")
-	q := "SELECT id, x, y FROM " + w.table("pts")
-	cases := []struct {
-		name string
-		args []string
-		code int
-		msg  string
-	}{
-		{"unknown covariance", []string{"--covariance", "banded"}, exitUsage, "--covariance must be full, diag, spherical or pooled"},
-		{"negative reg", []string{"--reg", "-0.1"}, exitUsage, "--reg must be a non-negative number"},
-		{"floor of 1", []string{"--membership-floor", "1"}, exitUsage, "--membership-floor must be in [0, 1)"},
-		{"negative floor", []string{"--membership-floor", "-0.5"}, exitUsage, "--membership-floor must be in [0, 1)"},
-		{"k too large for full matrices", []string{"--k", "20"}, exitFailure, "20"},
-		{"covariance with kmeans", []string{"--method", "kmeans", "--covariance", "diag"}, exitUsage, "--covariance applies to --method gmm only"},
-	}
-	for _, c := range cases {
-		args := append([]string{"fit", "bad", "--query", q, "--key", "id", "--method", "gmm", "--k", "2"}, c.args...)
-		code, _, stderr := assort(t, w.args(args...)...)
-		if code != c.code || !strings.Contains(stderr, c.msg) {
-			t.Errorf("%s: exit %d, want %d with %q; stderr:\n%s", c.name, code, c.code, c.msg, stderr)
-		}
-	}
-	code, _, stderr := assort(t, w.args("fit", "bad", "--query", "SELECT id, x, y FROM "+w.table("same"), "--key", "id", "--method", "gmm", "--k", "2")...)
-	if code != exitFailure || !strings.Contains(stderr, "identical") {
-		t.Errorf("all rows identical: exit %d; stderr:\n%s", code, stderr)
-	}
-	var n int
-	w.scalar(t, "SELECT count(*) FROM "+w.table("models"), &n)
-	if n != 0 {
-		t.Errorf("bad input left %d registry rows", n)
-	}
-}
-
 // TestFaithfulBIC chooses k among 1..6 by BIC for full-covariance mixtures
 // of the Old Faithful eruptions (Azzalini & Bowman 1990; testdata/faithful.csv,
 // source in testdata/SOURCES.md). The reference choice and BIC values were

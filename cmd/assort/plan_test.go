@@ -6,7 +6,6 @@ import (
 	"encoding/json"
 	"math"
 	"os"
-	"path/filepath"
 	"runtime"
 	"runtime/metrics"
 	"strconv"
@@ -405,68 +404,6 @@ func TestFitStaysWithinMemory(t *testing.T) {
 				t.Errorf("heap objects grew by %.1f MiB, more than --memory 8 MiB plus %d MiB", float64(objects)/(1<<20), memoryOverhead>>20)
 			}
 		})
-	}
-}
-
-// TestMemoryFlagsBadInput checks the messages and statuses of the memory
-// flags' misuse, and that nothing is written.
-func TestMemoryFlagsBadInput(t *testing.T) {
-	w := newWorkspace(t)
-	w.overlapping(t, "src", 2000)
-	file := filepath.Join(t.TempDir(), "plain-file")
-	if err := os.WriteFile(file, []byte("x"), 0o600); err != nil {
-		t.Fatal(err)
-	}
-	notDir := filepath.Join(file, "sub")
-	fit := []string{"fit", "m", "--query", "SELECT id, f1, f2, f3, f4 FROM " + w.table("src"), "--key", "id", "--k", "3"}
-	cases := []struct {
-		name string
-		args []string
-		code int
-		msg  []string
-	}{
-		{"memory too small", []string{"--memory", "1MiB", "--workers", "2"}, exitFailure,
-			[]string{"--memory 1 MiB is too small", "needs at least", "MiB"}},
-		{"memory not a size", []string{"--memory", "lots"}, exitUsage, []string{"--memory", `"lots"`}},
-		{"memory zero", []string{"--memory", "0"}, exitUsage, []string{"--memory", "zero"}},
-		{"unwritable spill dir", []string{"--spill-dir", notDir}, exitFailure, []string{"--spill-dir", notDir}},
-		{"sample zero", []string{"--sample", "0"}, exitUsage, []string{"--sample must be at least 1 row, got 0"}},
-		{"sample negative", []string{"--sample", "-5"}, exitUsage, []string{"--sample must be at least 1 row, got -5"}},
-		{"sample and fraction", []string{"--sample", "10", "--sample-fraction", "0.5"}, exitUsage, []string{"--sample and --sample-fraction", "give one"}},
-		{"fraction zero", []string{"--sample-fraction", "0"}, exitUsage, []string{"--sample-fraction must be in (0, 1], got 0"}},
-		{"fraction above one", []string{"--sample-fraction", "1.5"}, exitUsage, []string{"--sample-fraction must be in (0, 1], got 1.5"}},
-		{"fraction negative", []string{"--sample-fraction", "-0.1"}, exitUsage, []string{"--sample-fraction must be in (0, 1], got -0.1"}},
-		{"spill dir with sample", []string{"--sample", "10", "--spill-dir", t.TempDir()}, exitUsage, []string{"--spill-dir and --spill-float32 do not apply with --sample"}},
-		{"sample beyond memory", []string{"--sample", "1000000", "--memory", "16MiB"}, exitFailure, []string{"--sample 1000000 needs", "more than --memory 16 MiB"}},
-	}
-	before := relations(t, w)
-	for _, c := range cases {
-		t.Run(c.name, func(t *testing.T) {
-			args := append(append([]string{}, fit...), c.args...)
-			code, _, stderr := assort(t, w.args(args...)...)
-			if code != c.code {
-				t.Errorf("exit %d, want %d; stderr:\n%s", code, c.code, stderr)
-			}
-			for _, m := range c.msg {
-				if !strings.Contains(stderr, m) {
-					t.Errorf("stderr lacks %q:\n%s", m, stderr)
-				}
-			}
-			assertNothingWritten(t, w, before)
-		})
-	}
-
-	// Scoring streams its rows, but a chunk in flight per worker and the
-	// COPY's buffers still need room.
-	mustAssort(t, w.args(fit...)...)
-	code, _, stderr := assort(t, w.args("score", "m", "--query", "SELECT id, f1, f2, f3, f4 FROM "+w.table("src"), "--memory", "256KiB")...)
-	if code != exitFailure || !strings.Contains(stderr, "--memory 256 KiB is too small: reading and scoring rows of 4 features") {
-		t.Errorf("score with --memory 256KiB: exit %d, want %d, and a message saying so:\n%s", code, exitFailure, stderr)
-	}
-	var scorings int
-	w.scalar(t, "SELECT count(*) FROM "+w.table("scorings"), &scorings)
-	if scorings != 0 {
-		t.Errorf("%d scorings recorded after a failed score", scorings)
 	}
 }
 

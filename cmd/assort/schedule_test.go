@@ -2,7 +2,6 @@ package main
 
 import (
 	"fmt"
-	"strings"
 	"testing"
 )
 
@@ -109,44 +108,5 @@ func TestScoreEqualsFit(t *testing.T) {
 		if same != 450 || total != 450 {
 			t.Errorf("%s: %d of %d rows identical after scoring the fit's own query, want 450 of 450", c.name, same, total)
 		}
-	}
-}
-
-func TestScoreBadInput(t *testing.T) {
-	w := newWorkspace(t)
-	w.blobs(t, "pts", []int{20, 20}, 2)
-	w.exec(t, "CREATE TABLE "+w.table("words")+" AS SELECT id, x::text AS x, y FROM "+w.table("pts"))
-	q := "SELECT id, x, y FROM " + w.table("pts")
-	mustAssort(t, w.args("fit", "sc", "--query", q, "--key", "id", "--k", "2")...)
-	mustAssort(t, w.args("fit", "sc", "--query", q, "--key", "id", "--k", "2", "--no-publish")...)
-	mustAssort(t, w.args("fit", "sc", "--query", q, "--key", "id", "--k", "2", "--no-publish")...)
-	mustAssort(t, w.args("prune", "sc", "--keep", "1")...) // v2 pruned
-	var before string
-	w.scalar(t, "SELECT string_agg(version || ':' || (SELECT count(*) FROM "+w.table("scorings")+")::text, ',') FROM "+w.table("models"), &before)
-	cases := []struct {
-		name string
-		args []string
-		code int
-		msg  string
-	}{
-		{"missing feature", []string{"score", "sc", "--query", "SELECT id, x FROM " + w.table("pts")}, exitFailure, `"y"`},
-		{"extra column", []string{"score", "sc", "--query", "SELECT id, x, y, 1 AS z FROM " + w.table("pts")}, exitFailure, `column "z" is neither the key nor a feature of sc@1`},
-		{"no such version", []string{"score", "sc@9", "--query", q}, exitFailure, "sc@9"},
-		{"pruned version", []string{"score", "sc@2", "--query", q}, exitFailure, "sc@2 is pruned"},
-		{"feature not numeric", []string{"score", "sc", "--query", "SELECT id, x, y FROM " + w.table("words")}, exitFailure, `"x"`},
-		{"key of another type", []string{"score", "sc", "--query", "SELECT id::text AS id, x, y FROM " + w.table("pts")}, exitFailure, `key column "id" is text here but bigint`},
-		{"unknown mode", []string{"score", "sc", "--query", q, "--mode", "merge"}, exitUsage, "--mode must be upsert or replace"},
-		{"no model", []string{"score", "nosuch", "--query", q}, exitFailure, "nosuch"},
-	}
-	for _, c := range cases {
-		code, _, stderr := assort(t, w.args(c.args...)...)
-		if code != c.code || !strings.Contains(stderr, c.msg) {
-			t.Errorf("%s: exit %d, want %d with %q; stderr:\n%s", c.name, code, c.code, c.msg, stderr)
-		}
-	}
-	var after string
-	w.scalar(t, "SELECT string_agg(version || ':' || (SELECT count(*) FROM "+w.table("scorings")+")::text, ',') FROM "+w.table("models"), &after)
-	if after != before {
-		t.Errorf("bad scoring wrote something: %s, then %s", before, after)
 	}
 }
