@@ -1,11 +1,9 @@
 package fit
 
 import (
-	"cmp"
 	"context"
 	"fmt"
 	"math/rand/v2"
-	"slices"
 )
 
 // KMeansConfig configures KMeans. The zero value of every field but K
@@ -287,16 +285,7 @@ func (cfg KMeansConfig) withDefaults(n, d int) (KMeansConfig, error) {
 // centres).
 func (res *KMeansResult) order() {
 	k, d := res.K, res.D
-	idx := make([]int, k)
-	for j := range idx {
-		idx[j] = j
-	}
-	slices.SortStableFunc(idx, func(a, b int) int {
-		if c := cmp.Compare(res.Sizes[b], res.Sizes[a]); c != 0 {
-			return c
-		}
-		return slices.Compare(res.Centers[a*d:(a+1)*d], res.Centers[b*d:(b+1)*d])
-	})
+	idx := clusterOrder(res.Sizes, res.Centers, d)
 	centers := make([]float64, k*d)
 	sizes := make([]int64, k)
 	for to, from := range idx {

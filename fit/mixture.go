@@ -1,7 +1,6 @@
 package fit
 
 import (
-	"cmp"
 	"context"
 	"errors"
 	"fmt"
@@ -352,16 +351,7 @@ func (e *mixFatal) Unwrap() error { return e.err }
 func (f *mixFitter) result(run *mixRun, spurious int, events []string) *MixtureResult {
 	m := run.model
 	k, d := m.k, m.d
-	order := make([]int, k)
-	for j := range order {
-		order[j] = j
-	}
-	slices.SortStableFunc(order, func(a, b int) int {
-		if c := cmp.Compare(m.w[b], m.w[a]); c != 0 {
-			return c
-		}
-		return slices.Compare(m.mean[a*d:(a+1)*d], m.mean[b*d:(b+1)*d])
-	})
+	order := clusterOrder(m.w, m.mean, d)
 	out := newMixModel(k, d, m.cov)
 	q := triLen(d)
 	for to, from := range order {
