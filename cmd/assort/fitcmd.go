@@ -79,7 +79,7 @@ func parseFit(e *env, args []string) (*fitSpec, error) {
 	fs.StringSliceVar(&s.features, "features", nil, "feature columns, comma-separated (default: every column but the key)")
 	fs.StringVar(&s.method, "method", "kmeans", "kmeans or gmm (Gaussian mixture)")
 	fs.StringVar(&s.algorithm, "algorithm", "auto", "kmeans: lloyd, hamerly (exact, same result as lloyd, fewer distances), minibatch (approximate, for very large tables) or auto")
-	fs.StringVar(&s.seeding, "seeding", "auto", "kmeans: kmeans++ (greedy), kmeans|| (few passes, for large tables) or auto (greedy while the rows are in memory; kmeans|| from 10^6 spilled rows)")
+	fs.StringVar(&s.seeding, "seeding", "auto", "kmeans: kmeans++ (greedy), kmeans|| (few passes, for large tables) or auto (kmeans|| from 10^6 rows)")
 	fs.StringVar(&s.kText, "k", "", "number of clusters (required): 6, a range 2:12, or a list 3,5,8; with several, --criterion chooses")
 	fs.StringVar(&s.criterion, "criterion", "bic", "choice among several k: bic, aic, icl (gmm) or silhouette (kmeans)")
 	fs.Uint64Var(&s.seed, "seed", 1, "seed of every random choice; the same seed gives the same result")

@@ -258,7 +258,7 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 			}
 			fm.setStatus(st)
 		}
-		c, err := fitCandidate(ctx, s, &countedSource{Source: src, m: fm}, k, algorithm, chooseSeeding(s.seeding, rd.storage()), sil, progress)
+		c, err := fitCandidate(ctx, s, &countedSource{Source: src, m: fm}, k, algorithm, sil, progress)
 		fm.end()
 		if err != nil {
 			if len(s.ks) > 1 {

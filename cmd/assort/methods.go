@@ -27,14 +27,14 @@ type candidate struct {
 // fitCandidate fits one k with the spec's method on src (scaled rows)
 // and computes its criteria. algorithm is the k-means iterations the
 // memory plan allows; sil is the silhouette's sample of src (k-means).
-func fitCandidate(ctx context.Context, s *fitSpec, src fit.Source, k int, algorithm, seeding string, sil *fit.Dense, progress fit.Progress) (*candidate, error) {
+func fitCandidate(ctx context.Context, s *fitSpec, src fit.Source, k int, algorithm string, sil *fit.Dense, progress fit.Progress) (*candidate, error) {
 	c := &candidate{k: k}
 	n, d := src.Len(), src.Dim()
 	switch s.method {
 	case "kmeans":
 		res, err := fit.KMeans(ctx, src, fit.KMeansConfig{
 			K: k, Seed: s.seed, Restarts: s.restarts, MaxIter: s.maxIter, Tol: s.tol, Workers: s.workers,
-			Algorithm: algorithm, Seeding: seeding, Progress: progress,
+			Algorithm: algorithm, Seeding: seeding(s.seeding), Progress: progress,
 		})
 		if err != nil {
 			return nil, err
@@ -94,19 +94,12 @@ func silhouetteSample(ctx context.Context, src fit.Source, seed uint64) (*fit.De
 	return res.Sample(), nil
 }
 
-// chooseSeeding turns --seeding into fit's setting. "auto" is greedy
-// k-means++ while the rows are in memory, where its 2k passes cost only
-// their distances (fewer than k-means||'s), and fit's default by row count
-// (k-means|| from fit.ScalableSeedingRows) when every pass reads a spill
-// file.
-func chooseSeeding(flag, storage string) string {
-	switch {
-	case flag != "auto":
-		return flag
-	case storage == "spill":
+// seeding turns --seeding into fit's setting; "auto" is fit's default.
+func seeding(flag string) string {
+	if flag == "auto" {
 		return ""
 	}
-	return fit.SeedingGreedy
+	return flag
 }
 
 // iterations, converged and stop describe the candidate's winning run.
