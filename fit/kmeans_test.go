@@ -176,18 +176,7 @@ func TestKMeansDeterministicAcrossWorkers(t *testing.T) {
 	src := &Dense{N: 20_000, D: 5, X: x, ChunkRows: 333}
 	cfg := KMeansConfig{K: 6, Seed: 42, Restarts: 3}
 	var ref *KMeansResult
-	tests := []struct {
-		name       string
-		workers    int
-		gomaxprocs int
-	}{
-		{"workers 1", 1, 0},
-		{"workers 2", 2, 0},
-		{"workers 8", 8, 0},
-		{"GOMAXPROCS 1", 0, 1},
-		{"GOMAXPROCS 2", 0, 2},
-	}
-	for _, tt := range tests {
+	for _, tt := range parallelismCases {
 		t.Run(tt.name, func(t *testing.T) {
 			if tt.gomaxprocs > 0 {
 				defer runtime.GOMAXPROCS(runtime.GOMAXPROCS(tt.gomaxprocs))
@@ -475,4 +464,18 @@ func BenchmarkKMeans(b *testing.B) {
 			b.ReportMetric(float64(iters)/float64(b.N), "iters")
 		})
 	}
+}
+
+// parallelismCases are the worker counts and GOMAXPROCS settings under which
+// a fit must give bit-identical results.
+var parallelismCases = []struct {
+	name       string
+	workers    int
+	gomaxprocs int
+}{
+	{"workers 1", 1, 0},
+	{"workers 2", 2, 0},
+	{"workers 8", 8, 0},
+	{"GOMAXPROCS 1", 0, 1},
+	{"GOMAXPROCS 2", 0, 2},
 }

@@ -32,18 +32,7 @@ func TestScalableSeedingDeterministic(t *testing.T) {
 	src := &Dense{N: 30_000, D: 3, X: x, ChunkRows: 999}
 	var ref []float64
 	var refEvals int64
-	tests := []struct {
-		name       string
-		workers    int
-		gomaxprocs int
-	}{
-		{"workers 1", 1, 0},
-		{"workers 2", 2, 0},
-		{"workers 8", 8, 0},
-		{"GOMAXPROCS 1", 0, 1},
-		{"GOMAXPROCS 2", 0, 2},
-	}
-	for _, tt := range tests {
+	for _, tt := range parallelismCases {
 		t.Run(tt.name, func(t *testing.T) {
 			if tt.gomaxprocs > 0 {
 				defer runtime.GOMAXPROCS(runtime.GOMAXPROCS(tt.gomaxprocs))
@@ -145,21 +134,7 @@ func TestScalableSeedingDistinctRows(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			for j := range tt.k {
-				cj := c[j*3 : j*3+3]
-				isRow := false
-				for i := range 40 {
-					isRow = isRow || slices.Equal(cj, base[i*3:i*3+3])
-				}
-				if !isRow {
-					t.Errorf("centre %d = %v is not a row", j, cj)
-				}
-				for i := range j {
-					if slices.Equal(cj, c[i*3:i*3+3]) {
-						t.Errorf("centres %d and %d are both %v", i, j, cj)
-					}
-				}
-			}
+			checkDistinctRows(t, c, base, tt.k, 3)
 		})
 	}
 }

@@ -45,21 +45,7 @@ func TestSeedPicksDistinctRows(t *testing.T) {
 			if len(c) != tt.k*3 {
 				t.Fatalf("%d values, want %d", len(c), tt.k*3)
 			}
-			for j := range tt.k {
-				cj := c[j*3 : j*3+3]
-				isRow := false
-				for i := range 40 {
-					isRow = isRow || slices.Equal(cj, base[i*3:i*3+3])
-				}
-				if !isRow {
-					t.Errorf("centre %d = %v is not a row", j, cj)
-				}
-				for i := range j {
-					if slices.Equal(cj, c[i*3:i*3+3]) {
-						t.Errorf("centres %d and %d are both %v", i, j, cj)
-					}
-				}
-			}
+			checkDistinctRows(t, c, base, tt.k, 3)
 		})
 	}
 }
@@ -169,5 +155,26 @@ func TestSeedCentersEntryPoint(t *testing.T) {
 	}
 	if _, err := seedCenters(context.Background(), NewDense(x, 2), 1001, 0, 2, rand.New(rand.NewPCG(4, 0))); err == nil {
 		t.Error("K above the rows: no error")
+	}
+}
+
+// checkDistinctRows fails the test unless the k centres c (d features each)
+// are k distinct rows of base.
+func checkDistinctRows(t *testing.T, c, base []float64, k, d int) {
+	t.Helper()
+	for j := range k {
+		cj := c[j*d : (j+1)*d]
+		isRow := false
+		for i := range len(base) / d {
+			isRow = isRow || slices.Equal(cj, base[i*d:(i+1)*d])
+		}
+		if !isRow {
+			t.Errorf("centre %d = %v is not a row", j, cj)
+		}
+		for i := range j {
+			if slices.Equal(cj, c[i*d:(i+1)*d]) {
+				t.Errorf("centres %d and %d are both %v", i, j, cj)
+			}
+		}
 	}
 }
