@@ -232,21 +232,6 @@ func sampleRow(u float64, chunkPot []float64, lay *chunkLayout, closest []float6
 	if c < 0 {
 		panic("fit: sampling rows in proportion to a zero potential")
 	}
-	u -= base
 	first := lay.first[c]
-	pick := -1
-	acc = 0
-	for i, v := range closest[first : first+lay.rows[c]] {
-		if v > 0 {
-			pick = i
-			acc += v
-			if u < acc {
-				break
-			}
-		}
-	}
-	if pick < 0 {
-		panic(fmt.Sprintf("fit: chunk %d has a positive potential but no row with a positive distance", c))
-	}
-	return first + pick
+	return first + drawIndex(u-base, closest[first:first+lay.rows[c]])
 }
