@@ -108,3 +108,25 @@ func TestKMeansAlgorithms(t *testing.T) {
 		}
 	}
 }
+
+// TestSpreadWarning warns when unscaled features' standard deviations
+// differ by more than 100 times, naming both features, and not when
+// --scale standard is given.
+func TestSpreadWarning(t *testing.T) {
+	w := newWorkspace(t)
+	w.exec(t, "CREATE TABLE "+w.table("mag")+" AS SELECT g AS id, (g % 10)::float8 AS small, (g % 7) * 1000.0 AS large FROM generate_series(1, 200) g")
+	q := "SELECT id, small, large FROM " + w.table("mag")
+	code, _, stderr := assort(t, "fit", "warned", "--query", q, "--key", "id", "--k", "2", "-d", w.url, "--schema", w.schema)
+	if code != exitOK || !strings.Contains(stderr, `feature spreads differ by more than 100x (standard deviation of "large"`) || !strings.Contains(stderr, `of "small"`) {
+		t.Errorf("exit %d; stderr lacks the spread warning:\n%s", code, stderr)
+	}
+	code, _, stderr = assort(t, "fit", "scaled", "--query", q, "--key", "id", "--k", "2", "--scale", "standard", "-d", w.url, "--schema", w.schema)
+	if code != exitOK || strings.Contains(stderr, "spreads differ") {
+		t.Errorf("--scale standard: exit %d, stderr:\n%s", code, stderr)
+	}
+	var spread []float64
+	w.scalar(t, "SELECT spread FROM "+w.table("models")+" WHERE name = 'scaled'", &spread)
+	if len(spread) != 2 || spread[1] < 100*spread[0] {
+		t.Errorf("stored spread %v, want the two features' standard deviations", spread)
+	}
+}

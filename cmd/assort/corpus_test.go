@@ -98,6 +98,9 @@ func TestBadInputCorpus(t *testing.T) {
 		{"no model name", []string{"fit", "--query", src, "--key", "id", "--k", "2"}, exitUsage, []string{"one model name"}},
 		{"bad schema name", []string{"fit", "m", "--query", src, "--key", "id", "--k", "2", "--schema", `x"; drop`}, exitUsage, []string{"--schema"}},
 		{"unknown algorithm", fit("--k", "2", "--algorithm", "elkan"), exitUsage, []string{"--algorithm"}},
+		{"statement timeout", []string{"fit", "m", "--query", src + " WHERE pg_sleep(0.3) IS NOT NULL", "--key", "id", "--k", "2", "--statement-timeout", "100ms"},
+			exitFailure, []string{"statement timeout"}},
+		{"negative lock timeout", fit("--k", "2", "--lock-timeout", "-1s"), exitUsage, []string{"--lock-timeout"}},
 
 		// Mixtures.
 		{"unknown covariance", gmm("--covariance", "banded"), exitUsage, []string{"--covariance must be full, diag, spherical or pooled"}},
