@@ -29,6 +29,9 @@ func (k *Keys) At(i int) []byte {
 		start = k.End[i-1]
 	}
 	end := k.End[i]
+	if k.Data == nil {
+		return []byte{} // an empty key, not NULL
+	}
 	return k.Data[start:end:end]
 }
 

@@ -342,7 +342,8 @@ func startCopyOut(ctx context.Context, conn *pgconn.PgConn, sql string) *copyOut
 		return o
 	case conn.IsClosed():
 		o.ended = true
-		o.err = &copyFailed{errors.New("connection closed")}
+		o.lostErr = errors.New("connection closed")
+		o.err = &copyFailed{o.lostErr}
 		return o
 	case conn.IsBusy():
 		o.ended = true

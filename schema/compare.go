@@ -13,15 +13,15 @@ import (
 // label, of any type. It returns rows (cluster, label, rows) where cluster
 // is NULL for labelled keys missing from the version and label is NULL for
 // the version's rows without a label. Rows with a NULL label count as
-// unlabelled.
+// unlabelled; labels of a NULL key are left out.
 func LabelsSQL(v Version, key, labels, keyCol, labelCol string) string {
 	q := strings.TrimRight(strings.TrimSpace(labels), "; \t\n")
 	lk, ll := pgx.Identifier{keyCol}.Sanitize(), pgx.Identifier{labelCol}.Sanitize()
 	return fmt.Sprintf(`SELECT r.cluster, l.label, count(*)
 FROM %s r
 FULL JOIN (SELECT q.%s AS key, q.%s::text AS label FROM (%s
-) AS q WHERE q.%s IS NOT NULL) l ON r.%s = l.key
-GROUP BY 1, 2`, v.Results().Sanitize(), lk, ll, q, ll, pgx.Identifier{key}.Sanitize())
+) AS q WHERE q.%s IS NOT NULL AND q.%s IS NOT NULL) l ON r.%s = l.key
+GROUP BY 1, 2`, v.Results().Sanitize(), lk, ll, q, lk, ll, pgx.Identifier{key}.Sanitize())
 }
 
 // LabelsDuplicateSQL returns one key that the labels query gives more than
@@ -29,7 +29,7 @@ GROUP BY 1, 2`, v.Results().Sanitize(), lk, ll, q, ll, pgx.Identifier{key}.Sanit
 func LabelsDuplicateSQL(labels, keyCol string) string {
 	q := strings.TrimRight(strings.TrimSpace(labels), "; \t\n")
 	k := pgx.Identifier{keyCol}.Sanitize()
-	return fmt.Sprintf("SELECT q.%s::text FROM (%s\n) AS q GROUP BY q.%s HAVING count(*) > 1 LIMIT 1", k, q, k)
+	return fmt.Sprintf("SELECT q.%s::text FROM (%s\n) AS q WHERE q.%s IS NOT NULL GROUP BY q.%s HAVING count(*) > 1 LIMIT 1", k, q, k, k)
 }
 
 // VersionsSQL cross-tabulates two versions' results over their keys, with

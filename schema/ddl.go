@@ -75,12 +75,14 @@ func ViewDDL(view, table pgx.Identifier) string {
 	return fmt.Sprintf("CREATE OR REPLACE VIEW %s AS SELECT * FROM %s", view.Sanitize(), table.Sanitize())
 }
 
-// quoteLiteral quotes s as an SQL string literal (standard_conforming_strings on).
+// quoteLiteral quotes s as an escape string literal, E'...', with quotes
+// and backslashes doubled: correct whatever standard_conforming_strings
+// says, since the text (feature names, for one) comes from the user.
 func quoteLiteral(s string) string {
-	out := []byte{'\''}
+	out := []byte{'E', '\''}
 	for i := 0; i < len(s); i++ {
-		if s[i] == '\'' {
-			out = append(out, '\'')
+		if s[i] == '\'' || s[i] == '\\' {
+			out = append(out, s[i])
 		}
 		out = append(out, s[i])
 	}

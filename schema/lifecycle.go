@@ -90,7 +90,7 @@ func (r Registry) Prune(ctx context.Context, tx pgx.Tx, model string, keep int) 
 		if err := dropObjects(ctx, tx, v, o.d, o.method); err != nil {
 			return nil, err
 		}
-		if _, err := tx.Exec(ctx, "UPDATE "+r.table("models")+" SET status = 'pruned' WHERE name = $1 AND version = $2", model, n); err != nil {
+		if _, err := tx.Exec(ctx, "UPDATE "+r.table("models")+" SET status = 'pruned', functions = false WHERE name = $1 AND version = $2", model, n); err != nil {
 			return nil, fmt.Errorf("prune %s: %w", v, err)
 		}
 		pruned = append(pruned, n)

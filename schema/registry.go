@@ -4,7 +4,6 @@ import (
 	"context"
 	"errors"
 	"fmt"
-	"strings"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -208,6 +207,24 @@ func (r Registry) Publish(ctx context.Context, tx pgx.Tx, v Version, withMembers
 	if status != "ready" {
 		return fmt.Errorf("publish %s: the version is %s, only a ready version can be published", v, status)
 	}
+	// CREATE OR REPLACE VIEW keeps the views' grants but cannot change a
+	// column's name or type: when the key changed since the version shown
+	// now, the views are dropped first (without CASCADE: a view of yours
+	// on them makes the publish fail, naming it).
+	var keyChanged bool
+	err = tx.QueryRow(ctx, "SELECT (p.key_column, p.key_type) IS DISTINCT FROM (m.key_column, m.key_type) FROM "+r.table("models")+" m, "+
+		r.table("models")+" p WHERE m.name = $1 AND m.version = $2 AND p.name = $1 AND p.version = (SELECT version FROM "+
+		r.table("publications")+" WHERE name = $1 ORDER BY published_at DESC LIMIT 1)", v.Model, v.N).Scan(&keyChanged)
+	if err != nil && !errors.Is(err, pgx.ErrNoRows) {
+		return fmt.Errorf("publish %s: %w", v, err)
+	}
+	if keyChanged {
+		for _, view := range []pgx.Identifier{MembershipsView(v.Schema, v.Model), View(v.Schema, v.Model)} {
+			if _, err := tx.Exec(ctx, "DROP VIEW IF EXISTS "+view.Sanitize()); err != nil {
+				return fmt.Errorf("publish %s: the key changed, so %s must be re-created: %w", v, view.Sanitize(), err)
+			}
+		}
+	}
 	if _, err := tx.Exec(ctx, ViewDDL(View(v.Schema, v.Model), v.Results())); err != nil {
 		return fmt.Errorf("publish %s: view: %w", v, err)
 	}
@@ -319,7 +336,7 @@ func (r Registry) Model(ctx context.Context, q Querier, name string, version int
 	if err != nil {
 		return nil, nil, fmt.Errorf("read model %s: %w", name, err)
 	}
-	rows, err := q.Query(ctx, "SELECT cluster, size, weight, center, covariance, fitted_center, fitted_covariance, fitted_order, matched_cluster, match_cost FROM "+r.table("components")+
+	rows, err := q.Query(ctx, "SELECT cluster, size, weight, center, covariance, fitted_center, fitted_covariance, coalesce(fitted_order, cluster), matched_cluster, match_cost FROM "+r.table("components")+
 		" WHERE name = $1 AND version = $2 ORDER BY cluster", m.Name, m.Version)
 	if err != nil {
 		return nil, nil, fmt.Errorf("read components of %s@%d: %w", m.Name, m.Version, err)
@@ -349,15 +366,6 @@ func nullZero(v float64, keep bool) any {
 		return nil
 	}
 	return v
-}
-
-// quoteList renders names for messages: "a", "b".
-func quoteList(names []string) string {
-	q := make([]string, len(names))
-	for i, n := range names {
-		q[i] = fmt.Sprintf("%q", n)
-	}
-	return strings.Join(q, ", ")
 }
 
 // CheckFree makes sure the stable views of model can be created: a

@@ -141,6 +141,8 @@ func (e *env) connect(ctx context.Context, role string) (*pgx.Conn, error) {
 	return dbio.Connect(ctx, dbio.ConnConfig{URL: e.db, AppName: "assort " + role, Settings: map[string]string{
 		"statement_timeout": strconv.FormatInt(e.statementTimeout.Milliseconds(), 10),
 		"lock_timeout":      strconv.FormatInt(e.lockTimeout.Milliseconds(), 10),
+		// The read transaction waits, idle, while a sample is fitted.
+		"idle_in_transaction_session_timeout": "0",
 	}})
 }
 

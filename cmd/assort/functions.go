@@ -13,7 +13,7 @@ import (
 
 // functionModel gathers what a version's SQL scoring functions inline: its
 // scaling and its fitted-space parameters, components in cluster order (the
-// order scoreStored uses), with a mixture's Cholesky factors recomputed by
+// order storedModel uses), with a mixture's Cholesky factors recomputed by
 // the routine the fit used.
 func functionModel(m *schema.Model, comps []schema.Component) (schema.FunctionModel, error) {
 	fm := schema.FunctionModel{

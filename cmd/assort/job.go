@@ -326,11 +326,13 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 		sum.Memberships = v.Memberships().Sanitize()
 	}
 	if s.labels != "" {
-		c, err := compare(ctx, w, reg, m.Name, m.Version, s.labels, 0)
-		if err != nil {
-			return nil, fmt.Errorf("%s was written; comparing it with the labels failed: %w", v, err)
+		// The version is committed: a failed comparison is a warning, not a
+		// failed run (which a retry would fit again).
+		if c, err := compare(ctx, w, reg, m.Name, m.Version, s.labels, 0); err != nil {
+			e.warnf("%s was written; comparing it with the labels failed: %v", v, err)
+		} else {
+			sum.Comparison = c
 		}
-		sum.Comparison = c
 	}
 	return sum, nil
 }

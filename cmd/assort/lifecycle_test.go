@@ -102,3 +102,23 @@ func TestPublishPruneDrop(t *testing.T) {
 		t.Fatalf("functions left after dropping the model: %s", funcs)
 	}
 }
+
+// TestPublishAfterKeyChange publishes a version whose key has another name
+// and type than the published one's: the views are re-created.
+func TestPublishAfterKeyChange(t *testing.T) {
+	w := newWorkspace(t)
+	w.blobs(t, "pts", []int{20, 20}, 5)
+	mustAssort(t, w.args("fit", "keyed", "--query", "SELECT id, x, y FROM "+w.table("pts"), "--key", "id", "--k", "2")...)
+	mustAssort(t, w.args("fit", "keyed", "--query", "SELECT 'p' || id AS name, x, y FROM "+w.table("pts"), "--key", "name", "--k", "2")...)
+	var keyType string
+	w.scalar(t, `SELECT format_type(atttypid, atttypmod) FROM pg_attribute WHERE attrelid = $1::regclass AND attname = 'name'`, &keyType, w.schema+".keyed")
+	if keyType != "text" {
+		t.Fatalf("view key type %q, want text", keyType)
+	}
+	mustAssort(t, w.args("publish", "keyed@1")...)
+	var n int
+	w.scalar(t, "SELECT count(id) FROM "+w.table("keyed"), &n)
+	if n != 40 {
+		t.Fatalf("view back on v1 has %d ids, want 40", n)
+	}
+}

@@ -72,7 +72,10 @@ func withRetries[T any](ctx context.Context, e *env, retries int, job func() (T,
 		if err == nil || attempt >= retries || ctx.Err() != nil || !retryable(err) {
 			return v, err
 		}
-		wait := min(time.Second<<attempt, 30*time.Second)
+		wait := 30 * time.Second
+		if attempt < 5 {
+			wait = time.Second << attempt
+		}
 		e.warnf("attempt %d of %d failed: %v; starting again in %s", attempt+1, retries+1, err, wait)
 		select {
 		case <-ctx.Done():
@@ -133,7 +136,9 @@ func lockedConn(ctx context.Context, e *env, role, model string, wait time.Durat
 		return nil, nil, err
 	}
 	return conn, func() {
-		reg.Unlock(bg, conn, model)
-		conn.Close(bg)
+		ctx, cancel := context.WithTimeout(bg, abandonLimit)
+		defer cancel()
+		reg.Unlock(ctx, conn, model)
+		conn.Close(ctx)
 	}, nil
 }
