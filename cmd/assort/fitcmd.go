@@ -244,8 +244,9 @@ func (s *fitSpec) check(changed func(string) bool) error {
 	return nil
 }
 
-func (s *fitSpec) missingPolicy() dbio.Missing {
-	if s.missing == "skip" {
+// missingPolicy turns --missing into the reader's policy.
+func missingPolicy(flag string) dbio.Missing {
+	if flag == "skip" {
 		return dbio.MissingSkip
 	}
 	return dbio.MissingFail

@@ -38,23 +38,23 @@ func functionModel(m *schema.Model, comps []schema.Component) (schema.FunctionMo
 
 // createFunctions creates version v's scoring functions in tx and records
 // that it has them. Models with more features than a function can take
-// get none, with a warning.
-func createFunctions(ctx context.Context, e *env, tx pgx.Tx, v schema.Version, m *schema.Model, comps []schema.Component) error {
+// get none, with a warning. It returns the function model, nil when none.
+func createFunctions(ctx context.Context, e *env, tx pgx.Tx, v schema.Version, m *schema.Model, comps []schema.Component) (*schema.FunctionModel, error) {
 	if len(m.Features) > schema.MaxFunctionFeatures {
 		e.warnf("%s has %d features, more than an SQL scoring function takes (%d); it gets none", v, len(m.Features), schema.MaxFunctionFeatures)
-		return nil
+		return nil, nil
 	}
 	fm, err := functionModel(m, comps)
 	if err != nil {
-		return err
+		return nil, err
 	}
 	for _, stmt := range schema.FunctionsDDL(v, fm) {
 		if _, err := tx.Exec(ctx, stmt); err != nil {
-			return fmt.Errorf("create the scoring functions of %s: %w", v, err)
+			return nil, fmt.Errorf("create the scoring functions of %s: %w", v, err)
 		}
 	}
 	m.Functions = true
-	return nil
+	return &fm, nil
 }
 
 // publishFunctions points the stable forwarders NAME_cluster... at version
@@ -62,24 +62,21 @@ func createFunctions(ctx context.Context, e *env, tx pgx.Tx, v schema.Version, m
 // version published before are dropped first when their signature differs
 // (other features or method), and dropped without replacement when v has
 // no functions, so that they never answer for another version than the
-// one the views show.
-func publishFunctions(ctx context.Context, tx pgx.Tx, reg schema.Registry, v schema.Version, m *schema.Model, comps []schema.Component) error {
+// one the views show. fm is v's function model, nil when v has no
+// functions.
+func publishFunctions(ctx context.Context, tx pgx.Tx, reg schema.Registry, v schema.Version, m *schema.Model, fm *schema.FunctionModel) error {
 	var stmts []string
 	prev, _, err := reg.Model(ctx, tx, v.Model, 0)
 	switch {
 	case err == nil:
-		if !m.Functions || prev.Method != m.Method || !slices.Equal(prev.Features, m.Features) {
+		if fm == nil || prev.Method != m.Method || !slices.Equal(prev.Features, m.Features) {
 			stmts = append(stmts, schema.DropStableFunctionsDDL(v.Schema, v.Model, len(prev.Features), prev.Method)...)
 		}
 	case !errors.Is(err, schema.ErrNoModel):
 		return err
 	}
-	if m.Functions {
-		fm, err := functionModel(m, comps)
-		if err != nil {
-			return err
-		}
-		stmts = append(stmts, schema.StableFunctionsDDL(v, fm)...)
+	if fm != nil {
+		stmts = append(stmts, schema.StableFunctionsDDL(v, *fm)...)
 	} else {
 		stmts = append(stmts, schema.DropStableFunctionsDDL(v.Schema, v.Model, len(m.Features), m.Method)...)
 	}

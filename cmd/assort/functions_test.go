@@ -60,7 +60,7 @@ func sfCatalogue(t testing.TB, conn *pgx.Conn, schemaName, name string, sizes []
 }
 
 // sfFunctionModel builds the scoring functions' model of a stored version
-// from its registry rows, components in cluster order as scoreStored
+// from its registry rows, components in cluster order as storedModel
 // scores them: fitted centres for k-means, and for mixtures the factors of
 // the restored fitted-space mixture, which it also returns.
 func sfFunctionModel(t testing.TB, conn *pgx.Conn, schemaName, name string, version int) (schema.FunctionModel, *fit.MixtureResult) {
@@ -284,7 +284,7 @@ func sfTable(t *testing.T, w *workspace, name string, x []float64) {
 }
 
 // sfGoLabel is the Go scoring's cluster number of one row (original
-// units), as scoreStored computes it.
+// units), as storedModel computes it.
 func sfGoLabel(fm schema.FunctionModel, mx *fit.MixtureResult, row []float64) int {
 	y := slices.Clone(row)
 	if fm.Scale {
@@ -338,7 +338,7 @@ func sfEdges(fm schema.FunctionModel, mx *fit.MixtureResult, ends [][]float64) [
 }
 
 // sfCheckProbes scores the rows of table (which holds probes) in Go, as
-// scoreStored does, and with the functions of v, and compares.
+// storedModel does, and with the functions of v, and compares.
 func sfCheckProbes(t *testing.T, w *workspace, v schema.Version, fm schema.FunctionModel, mx *fit.MixtureResult, table string, probes []float64, stable bool, label string) {
 	t.Helper()
 	d := len(fm.Features)

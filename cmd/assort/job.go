@@ -154,7 +154,7 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 		return nil, err
 	}
 	defer r.Close(context.WithoutCancel(ctx))
-	rt, err := openRead(ctx, r, readSpec{query: s.query, key: s.key, features: s.features, missing: s.missingPolicy()})
+	rt, err := openRead(ctx, r, readSpec{query: s.query, key: s.key, features: s.features, missing: missingPolicy(s.missing)})
 	if err != nil {
 		return nil, err
 	}

@@ -55,7 +55,15 @@ func runPublish(ctx context.Context, e *env, args []string) error {
 		if m.Status != "ready" {
 			return fmt.Errorf("publish %s: the version is %s, only a ready version can be published", v, m.Status)
 		}
-		if err := publishFunctions(ctx, tx, reg, v, m, comps); err != nil {
+		var fm *schema.FunctionModel
+		if m.Functions {
+			f, err := functionModel(m, comps)
+			if err != nil {
+				return err
+			}
+			fm = &f
+		}
+		if err := publishFunctions(ctx, tx, reg, v, m, fm); err != nil {
 			return err
 		}
 		return reg.Publish(ctx, tx, v, m.Method == "gmm")

@@ -113,11 +113,7 @@ func scoreJob(ctx context.Context, e *env, s *scoreSpec) (*scoreSummary, error) 
 		return nil, err
 	}
 	defer r.Close(context.WithoutCancel(ctx))
-	missing := dbio.MissingFail
-	if s.missing == "skip" {
-		missing = dbio.MissingSkip
-	}
-	rt, err := openRead(ctx, r, readSpec{query: s.query, key: m.KeyColumn, features: m.Features, missing: missing, scoring: m})
+	rt, err := openRead(ctx, r, readSpec{query: s.query, key: m.KeyColumn, features: m.Features, missing: missingPolicy(s.missing), scoring: m})
 	if err != nil {
 		return nil, err
 	}

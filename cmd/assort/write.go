@@ -74,15 +74,16 @@ func writeVersion(ctx context.Context, e *env, conn *pgx.Conn, reg schema.Regist
 	if _, err := tx.Exec(ctx, "ANALYZE "+v.Results().Sanitize()); err != nil {
 		return fmt.Errorf("analyze %s: %w", v.Results().Sanitize(), err)
 	}
+	var fm *schema.FunctionModel
 	if functions {
-		if err := createFunctions(ctx, e, tx, v, m, out.components); err != nil {
+		if fm, err = createFunctions(ctx, e, tx, v, m, out.components); err != nil {
 			return err
 		}
 	}
 	if publish {
 		// Before Finish marks v ready: the forwarders compare v with the
 		// version published until now.
-		if err := publishFunctions(ctx, tx, reg, v, m, out.components); err != nil {
+		if err := publishFunctions(ctx, tx, reg, v, m, fm); err != nil {
 			return err
 		}
 	}

@@ -7,7 +7,7 @@ SELECT CASE
 END
 $fn$;
 
-COMMENT ON FUNCTION "my schema"."pops_v12_cluster_of"(float8, float8) IS 'Helper of pops_v12_cluster: the cluster given the log weighted densities of the components, in the model''s order';
+COMMENT ON FUNCTION "my schema"."pops_v12_cluster_of"(float8, float8) IS E'Helper of pops_v12_cluster: the cluster given the log weighted densities of the components, in the model''s order';
 
 CREATE FUNCTION "my schema"."pops_v12_cluster"("x" float8, "y" float8) RETURNS integer
 LANGUAGE sql IMMUTABLE PARALLEL SAFE
@@ -19,7 +19,7 @@ SELECT CASE WHEN ($1 - $1) = 0::float8 AND ($2 - $2) = 0::float8 THEN
 END
 $fn$;
 
-COMMENT ON FUNCTION "my schema"."pops_v12_cluster"(float8, float8) IS 'Cluster of a row under pops@12 (gmm; features x, y), computed as assort computes it';
+COMMENT ON FUNCTION "my schema"."pops_v12_cluster"(float8, float8) IS E'Cluster of a row under pops@12 (gmm; features x, y), computed as assort computes it';
 
 CREATE FUNCTION "my schema"."pops_v12_probability_of"("s1" float8, "s2" float8) RETURNS float8
 LANGUAGE sql IMMUTABLE PARALLEL SAFE STRICT COST 836
@@ -27,7 +27,7 @@ AS $fn$
 SELECT (1::float8 / (pg_catalog.exp(GREATEST(($1 - GREATEST($1, $2)), (-708::float8))) + pg_catalog.exp(GREATEST(($2 - GREATEST($1, $2)), (-708::float8)))))
 $fn$;
 
-COMMENT ON FUNCTION "my schema"."pops_v12_probability_of"(float8, float8) IS 'Helper of pops_v12_probability: the membership probability of its cluster given the log weighted densities of the components, in the model''s order';
+COMMENT ON FUNCTION "my schema"."pops_v12_probability_of"(float8, float8) IS E'Helper of pops_v12_probability: the membership probability of its cluster given the log weighted densities of the components, in the model''s order';
 
 CREATE FUNCTION "my schema"."pops_v12_probability"("x" float8, "y" float8) RETURNS float8
 LANGUAGE sql IMMUTABLE PARALLEL SAFE
@@ -39,7 +39,7 @@ SELECT CASE WHEN ($1 - $1) = 0::float8 AND ($2 - $2) = 0::float8 THEN
 END
 $fn$;
 
-COMMENT ON FUNCTION "my schema"."pops_v12_probability"(float8, float8) IS 'Membership probability of its cluster of a row under pops@12 (gmm; features x, y), computed as assort computes it';
+COMMENT ON FUNCTION "my schema"."pops_v12_probability"(float8, float8) IS E'Membership probability of its cluster of a row under pops@12 (gmm; features x, y), computed as assort computes it';
 
 CREATE FUNCTION "my schema"."pops_v12_log_density_of"("s1" float8, "s2" float8) RETURNS float8
 LANGUAGE sql IMMUTABLE PARALLEL SAFE STRICT COST 908
@@ -47,7 +47,7 @@ AS $fn$
 SELECT (GREATEST($1, $2) + pg_catalog.ln((pg_catalog.exp(GREATEST(($1 - GREATEST($1, $2)), (-708::float8))) + pg_catalog.exp(GREATEST(($2 - GREATEST($1, $2)), (-708::float8))))))
 $fn$;
 
-COMMENT ON FUNCTION "my schema"."pops_v12_log_density_of"(float8, float8) IS 'Helper of pops_v12_log_density: the natural log of the mixture density (fitted space) given the log weighted densities of the components, in the model''s order';
+COMMENT ON FUNCTION "my schema"."pops_v12_log_density_of"(float8, float8) IS E'Helper of pops_v12_log_density: the natural log of the mixture density (fitted space) given the log weighted densities of the components, in the model''s order';
 
 CREATE FUNCTION "my schema"."pops_v12_log_density"("x" float8, "y" float8) RETURNS float8
 LANGUAGE sql IMMUTABLE PARALLEL SAFE
@@ -59,7 +59,7 @@ SELECT CASE WHEN ($1 - $1) = 0::float8 AND ($2 - $2) = 0::float8 THEN
 END
 $fn$;
 
-COMMENT ON FUNCTION "my schema"."pops_v12_log_density"(float8, float8) IS 'Natural log of the mixture density (fitted space) of a row under pops@12 (gmm; features x, y), computed as assort computes it';
+COMMENT ON FUNCTION "my schema"."pops_v12_log_density"(float8, float8) IS E'Natural log of the mixture density (fitted space) of a row under pops@12 (gmm; features x, y), computed as assort computes it';
 
 CREATE OR REPLACE FUNCTION "my schema"."pops_cluster"("x" float8, "y" float8) RETURNS integer
 LANGUAGE sql STABLE PARALLEL SAFE
@@ -67,7 +67,7 @@ AS $fn$
 SELECT "my schema"."pops_v12_cluster"($1, $2)
 $fn$;
 
-COMMENT ON FUNCTION "my schema"."pops_cluster"(float8, float8) IS 'Cluster of a row under the published version of pops (now pops@12)';
+COMMENT ON FUNCTION "my schema"."pops_cluster"(float8, float8) IS E'Cluster of a row under the published version of pops (now pops@12)';
 
 CREATE OR REPLACE FUNCTION "my schema"."pops_probability"("x" float8, "y" float8) RETURNS float8
 LANGUAGE sql STABLE PARALLEL SAFE
@@ -75,7 +75,7 @@ AS $fn$
 SELECT "my schema"."pops_v12_probability"($1, $2)
 $fn$;
 
-COMMENT ON FUNCTION "my schema"."pops_probability"(float8, float8) IS 'Membership probability of its cluster of a row under the published version of pops (now pops@12)';
+COMMENT ON FUNCTION "my schema"."pops_probability"(float8, float8) IS E'Membership probability of its cluster of a row under the published version of pops (now pops@12)';
 
 CREATE OR REPLACE FUNCTION "my schema"."pops_log_density"("x" float8, "y" float8) RETURNS float8
 LANGUAGE sql STABLE PARALLEL SAFE
@@ -83,7 +83,7 @@ AS $fn$
 SELECT "my schema"."pops_v12_log_density"($1, $2)
 $fn$;
 
-COMMENT ON FUNCTION "my schema"."pops_log_density"(float8, float8) IS 'Natural log of the mixture density (fitted space) of a row under the published version of pops (now pops@12)';
+COMMENT ON FUNCTION "my schema"."pops_log_density"(float8, float8) IS E'Natural log of the mixture density (fitted space) of a row under the published version of pops (now pops@12)';
 
 DROP FUNCTION IF EXISTS "my schema"."pops_v12_cluster"(float8, float8);
 

@@ -16,7 +16,7 @@ FROM (SELECT v2, v4,
   WHERE ($1 - $1) = 0::float8 AND ($2 - $2) = 0::float8 OFFSET 0) AS q1 OFFSET 0) AS q2 OFFSET 0) AS q3
 $fn$;
 
-COMMENT ON FUNCTION "assort"."pops_v1_cluster"(float8, float8) IS 'Cluster of a row under pops@1 (gmm; features x, y), computed as assort computes it';
+COMMENT ON FUNCTION "assort"."pops_v1_cluster"(float8, float8) IS E'Cluster of a row under pops@1 (gmm; features x, y), computed as assort computes it';
 
 CREATE FUNCTION "assort"."pops_v1_probability"("x" float8, "y" float8) RETURNS float8
 LANGUAGE sql IMMUTABLE PARALLEL SAFE STRICT COST 2254
@@ -33,7 +33,7 @@ FROM (SELECT v2, v4,
   WHERE ($1 - $1) = 0::float8 AND ($2 - $2) = 0::float8 OFFSET 0) AS q1 OFFSET 0) AS q2 OFFSET 0) AS q3
 $fn$;
 
-COMMENT ON FUNCTION "assort"."pops_v1_probability"(float8, float8) IS 'Membership probability of its cluster of a row under pops@1 (gmm; features x, y), computed as assort computes it';
+COMMENT ON FUNCTION "assort"."pops_v1_probability"(float8, float8) IS E'Membership probability of its cluster of a row under pops@1 (gmm; features x, y), computed as assort computes it';
 
 CREATE FUNCTION "assort"."pops_v1_log_density"("x" float8, "y" float8) RETURNS float8
 LANGUAGE sql IMMUTABLE PARALLEL SAFE STRICT COST 2278
@@ -50,7 +50,7 @@ FROM (SELECT v2, v4,
   WHERE ($1 - $1) = 0::float8 AND ($2 - $2) = 0::float8 OFFSET 0) AS q1 OFFSET 0) AS q2 OFFSET 0) AS q3
 $fn$;
 
-COMMENT ON FUNCTION "assort"."pops_v1_log_density"(float8, float8) IS 'Natural log of the mixture density (fitted space) of a row under pops@1 (gmm; features x, y), computed as assort computes it';
+COMMENT ON FUNCTION "assort"."pops_v1_log_density"(float8, float8) IS E'Natural log of the mixture density (fitted space) of a row under pops@1 (gmm; features x, y), computed as assort computes it';
 
 CREATE OR REPLACE FUNCTION "assort"."pops_cluster"("x" float8, "y" float8) RETURNS integer
 LANGUAGE sql STABLE PARALLEL SAFE
@@ -58,7 +58,7 @@ AS $fn$
 SELECT "assort"."pops_v1_cluster"($1, $2)
 $fn$;
 
-COMMENT ON FUNCTION "assort"."pops_cluster"(float8, float8) IS 'Cluster of a row under the published version of pops (now pops@1)';
+COMMENT ON FUNCTION "assort"."pops_cluster"(float8, float8) IS E'Cluster of a row under the published version of pops (now pops@1)';
 
 CREATE OR REPLACE FUNCTION "assort"."pops_probability"("x" float8, "y" float8) RETURNS float8
 LANGUAGE sql STABLE PARALLEL SAFE
@@ -66,7 +66,7 @@ AS $fn$
 SELECT "assort"."pops_v1_probability"($1, $2)
 $fn$;
 
-COMMENT ON FUNCTION "assort"."pops_probability"(float8, float8) IS 'Membership probability of its cluster of a row under the published version of pops (now pops@1)';
+COMMENT ON FUNCTION "assort"."pops_probability"(float8, float8) IS E'Membership probability of its cluster of a row under the published version of pops (now pops@1)';
 
 CREATE OR REPLACE FUNCTION "assort"."pops_log_density"("x" float8, "y" float8) RETURNS float8
 LANGUAGE sql STABLE PARALLEL SAFE
@@ -74,7 +74,7 @@ AS $fn$
 SELECT "assort"."pops_v1_log_density"($1, $2)
 $fn$;
 
-COMMENT ON FUNCTION "assort"."pops_log_density"(float8, float8) IS 'Natural log of the mixture density (fitted space) of a row under the published version of pops (now pops@1)';
+COMMENT ON FUNCTION "assort"."pops_log_density"(float8, float8) IS E'Natural log of the mixture density (fitted space) of a row under the published version of pops (now pops@1)';
 
 DROP FUNCTION IF EXISTS "assort"."pops_v1_cluster"(float8, float8);
 

@@ -9,7 +9,7 @@ END
 END
 $fn$;
 
-COMMENT ON FUNCTION "assort"."colours_v3_cluster"(float8, float8) IS 'Cluster of a row under colours@3 (kmeans; features g_r, odd "name"), computed as assort computes it';
+COMMENT ON FUNCTION "assort"."colours_v3_cluster"(float8, float8) IS E'Cluster of a row under colours@3 (kmeans; features g_r, odd "name"), computed as assort computes it';
 
 CREATE OR REPLACE FUNCTION "assort"."colours_cluster"("g_r" float8, "odd ""name""" float8) RETURNS integer
 LANGUAGE sql STABLE PARALLEL SAFE
@@ -17,7 +17,7 @@ AS $fn$
 SELECT "assort"."colours_v3_cluster"($1, $2)
 $fn$;
 
-COMMENT ON FUNCTION "assort"."colours_cluster"(float8, float8) IS 'Cluster of a row under the published version of colours (now colours@3)';
+COMMENT ON FUNCTION "assort"."colours_cluster"(float8, float8) IS E'Cluster of a row under the published version of colours (now colours@3)';
 
 DROP FUNCTION IF EXISTS "assort"."colours_v3_cluster"(float8, float8);
 

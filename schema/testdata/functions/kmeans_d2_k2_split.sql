@@ -7,7 +7,7 @@ SELECT CASE LEAST($1, $2)
 END
 $fn$;
 
-COMMENT ON FUNCTION "assort"."colours_v3_cluster_of"(float8, float8) IS 'Helper of colours_v3_cluster: the cluster given the squared distances to the centres, in the model''s order';
+COMMENT ON FUNCTION "assort"."colours_v3_cluster_of"(float8, float8) IS E'Helper of colours_v3_cluster: the cluster given the squared distances to the centres, in the model''s order';
 
 CREATE FUNCTION "assort"."colours_v3_cluster"("g_r" float8, "odd ""name""" float8) RETURNS integer
 LANGUAGE sql IMMUTABLE PARALLEL SAFE
@@ -19,7 +19,7 @@ SELECT CASE WHEN ($1 - $1) = 0::float8 AND ($2 - $2) = 0::float8 THEN
 END
 $fn$;
 
-COMMENT ON FUNCTION "assort"."colours_v3_cluster"(float8, float8) IS 'Cluster of a row under colours@3 (kmeans; features g_r, odd "name"), computed as assort computes it';
+COMMENT ON FUNCTION "assort"."colours_v3_cluster"(float8, float8) IS E'Cluster of a row under colours@3 (kmeans; features g_r, odd "name"), computed as assort computes it';
 
 CREATE OR REPLACE FUNCTION "assort"."colours_cluster"("g_r" float8, "odd ""name""" float8) RETURNS integer
 LANGUAGE sql STABLE PARALLEL SAFE
@@ -27,7 +27,7 @@ AS $fn$
 SELECT "assort"."colours_v3_cluster"($1, $2)
 $fn$;
 
-COMMENT ON FUNCTION "assort"."colours_cluster"(float8, float8) IS 'Cluster of a row under the published version of colours (now colours@3)';
+COMMENT ON FUNCTION "assort"."colours_cluster"(float8, float8) IS E'Cluster of a row under the published version of colours (now colours@3)';
 
 DROP FUNCTION IF EXISTS "assort"."colours_v3_cluster"(float8, float8);
 
