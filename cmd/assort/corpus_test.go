@@ -151,6 +151,7 @@ func TestBadInputCorpus(t *testing.T) {
 			exitFailure, []string{`key column "id" is text here but bigint`}},
 		{"score in an unknown mode", []string{"score", "sc", "--query", pts, "--mode", "merge"}, exitUsage, []string{"--mode must be upsert or replace"}},
 		{"score an unknown model", []string{"score", "nosuch", "--query", pts}, exitFailure, []string{"nosuch"}},
+		{"score the published version unpublished", []string{"score", "sc@1", "--query", pts, "--no-publish"}, exitFailure, []string{"sc@1 is the published version", "--no-publish"}},
 		{"publish a failed version", []string{"publish", "sc@4"}, exitFailure, []string{"the version is failed"}},
 		{"publish a running version", []string{"publish", "sc@5"}, exitFailure, []string{"the version is running"}},
 		{"publish a pruned version", []string{"publish", "sc@2"}, exitFailure, []string{"the version is pruned"}},

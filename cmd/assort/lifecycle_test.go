@@ -122,3 +122,25 @@ func TestPublishAfterKeyChange(t *testing.T) {
 		t.Fatalf("view back on v1 has %d ids, want 40", n)
 	}
 }
+
+// TestStageThenPublish stages rows in an unpublished version with
+// score --no-publish, leaves the view alone, and publishes them at once.
+func TestStageThenPublish(t *testing.T) {
+	w := newWorkspace(t)
+	w.blobs(t, "pts", []int{30, 20}, 6)
+	q := "SELECT id, x, y FROM " + w.table("pts")
+	mustAssort(t, w.args("fit", "stage", "--query", q+" WHERE id <= 40", "--key", "id", "--k", "2")...)
+	mustAssort(t, w.args("fit", "stage", "--query", q+" WHERE id <= 40", "--key", "id", "--k", "2", "--no-publish")...)
+	mustAssort(t, w.args("score", "stage@2", "--query", q+" WHERE id > 40", "--no-publish")...)
+	var shown, staged int
+	w.scalar(t, "SELECT count(*) FROM "+w.table("stage"), &shown)
+	w.scalar(t, "SELECT count(*) FROM "+w.table("stage_v2"), &staged)
+	if shown != 40 || staged != 50 {
+		t.Fatalf("view shows %d rows, v2 holds %d; want 40 and 50", shown, staged)
+	}
+	mustAssort(t, w.args("publish", "stage@2")...)
+	w.scalar(t, "SELECT count(*) FROM "+w.table("stage"), &shown)
+	if shown != 50 {
+		t.Fatalf("after publish the view shows %d rows, want 50", shown)
+	}
+}

@@ -28,6 +28,7 @@ type scoreSpec struct {
 	wait      time.Duration
 	retries   int
 	json      bool
+	noPublish bool
 }
 
 func runScore(ctx context.Context, e *env, args []string) error {
@@ -42,6 +43,7 @@ func runScore(ctx context.Context, e *env, args []string) error {
 	fs.DurationVar(&s.wait, "wait", 0, "wait this long for another run of the same model to finish (default: exit at once with status 3)")
 	fs.IntVar(&s.retries, "retries", 0, "after a lost connection or server restart, run the whole job again up to this many times, with backoff")
 	fs.BoolVar(&s.json, "json", false, "print a JSON summary on stdout")
+	fs.BoolVar(&s.noPublish, "no-publish", false, "the rows must not become visible through the stable views: refuse to score the published version")
 	if err := e.parse(fs, args); err != nil {
 		return err
 	}
@@ -105,6 +107,9 @@ func scoreJob(ctx context.Context, e *env, s *scoreSpec) (*scoreSummary, error) 
 	}
 	if m.Status != "ready" {
 		return nil, fmt.Errorf("%s@%d is %s; only a ready version can score rows", m.Name, m.Version, m.Status)
+	}
+	if s.noPublish && m.Published {
+		return nil, fmt.Errorf("%s@%d is the published version, so its new rows would be visible at once; with --no-publish score an unpublished version", m.Name, m.Version)
 	}
 	v := schema.Version{Schema: e.schema, Model: m.Name, N: m.Version}
 
