@@ -92,7 +92,6 @@ type Reader struct {
 	chunks  int
 	read    int64
 	skipped int64
-	kept    int64
 	err     error
 	eof     bool
 	closed  bool
@@ -143,7 +142,7 @@ func (r *Reader) Next() bool {
 	r.chunks++
 	c := &r.chunk
 	c.N = 0
-	c.First = r.kept
+	c.First = r.read - r.skipped // rows delivered so far
 	c.Keys.Reset()
 	if c.X == nil {
 		c.X = make([]float64, 0, r.cfg.ChunkRows*r.d)
@@ -212,7 +211,6 @@ func (r *Reader) Next() bool {
 	if r.err != nil {
 		return false
 	}
-	r.kept += int64(c.N)
 	return c.N > 0
 }
 

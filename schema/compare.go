@@ -15,7 +15,7 @@ import (
 // the version's rows without a label. Rows with a NULL label count as
 // unlabelled; labels of a NULL key are left out.
 func LabelsSQL(v Version, key, labels, keyCol, labelCol string) string {
-	q := strings.TrimRight(strings.TrimSpace(labels), "; \t\n")
+	q := trimQuery(labels)
 	lk, ll := pgx.Identifier{keyCol}.Sanitize(), pgx.Identifier{labelCol}.Sanitize()
 	return fmt.Sprintf(`SELECT r.cluster, l.label, count(*)
 FROM %s r
@@ -27,7 +27,7 @@ GROUP BY 1, 2`, v.Results().Sanitize(), lk, ll, q, lk, ll, pgx.Identifier{key}.S
 // LabelsDuplicateSQL returns one key that the labels query gives more than
 // once, if any.
 func LabelsDuplicateSQL(labels, keyCol string) string {
-	q := strings.TrimRight(strings.TrimSpace(labels), "; \t\n")
+	q := trimQuery(labels)
 	k := pgx.Identifier{keyCol}.Sanitize()
 	return fmt.Sprintf("SELECT q.%s::text FROM (%s\n) AS q WHERE q.%s IS NOT NULL GROUP BY q.%s HAVING count(*) > 1 LIMIT 1", k, q, k, k)
 }
@@ -86,3 +86,7 @@ func (r Registry) RecordComparison(ctx context.Context, tx pgx.Tx, c *Comparison
 	}
 	return nil
 }
+
+// trimQuery strips the white space and trailing semicolons that would stop
+// a user's query from being wrapped as a subquery.
+func trimQuery(q string) string { return strings.TrimRight(strings.TrimSpace(q), "; \t\r\n\f\v") }

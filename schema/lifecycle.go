@@ -8,11 +8,19 @@ import (
 	"github.com/jackc/pgx/v5"
 )
 
+// publishedSQL selects the version that the stable views of the model
+// named by the SQL expression name show: its newest publication.
+func (r Registry) publishedSQL(name string) string {
+	return "SELECT version FROM " + r.table("publications") + " WHERE name = " + name + newestPublication
+}
+
+// newestPublication picks, among a model's publications, the one in force.
+const newestPublication = " ORDER BY published_at DESC LIMIT 1"
+
 // published returns the version the stable views of model show, 0 for none.
 func (r Registry) published(ctx context.Context, q Querier, model string) (int, error) {
 	var v int
-	err := q.QueryRow(ctx, "SELECT version FROM "+r.table("publications")+
-		" WHERE name = $1 ORDER BY published_at DESC LIMIT 1", model).Scan(&v)
+	err := q.QueryRow(ctx, r.publishedSQL("$1"), model).Scan(&v)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return 0, nil
 	}

@@ -213,8 +213,8 @@ func (r Registry) Publish(ctx context.Context, tx pgx.Tx, v Version, withMembers
 	// on them makes the publish fail, naming it).
 	var keyChanged bool
 	err = tx.QueryRow(ctx, "SELECT (p.key_column, p.key_type) IS DISTINCT FROM (m.key_column, m.key_type) FROM "+r.table("models")+" m, "+
-		r.table("models")+" p WHERE m.name = $1 AND m.version = $2 AND p.name = $1 AND p.version = (SELECT version FROM "+
-		r.table("publications")+" WHERE name = $1 ORDER BY published_at DESC LIMIT 1)", v.Model, v.N).Scan(&keyChanged)
+		r.table("models")+" p WHERE m.name = $1 AND m.version = $2 AND p.name = $1 AND p.version = ("+r.publishedSQL("$1")+")",
+		v.Model, v.N).Scan(&keyChanged)
 	if err != nil && !errors.Is(err, pgx.ErrNoRows) {
 		return fmt.Errorf("publish %s: %w", v, err)
 	}
@@ -255,7 +255,7 @@ const modelColumns = `m.name, m.version, m.status, m.method, coalesce(m.algorith
 
 func (r Registry) modelsFrom() string {
 	return " FROM " + r.table("models") + " m LEFT JOIN LATERAL (SELECT version, published_at, published_by FROM " +
-		r.table("publications") + " WHERE name = m.name ORDER BY published_at DESC LIMIT 1) p ON true"
+		r.table("publications") + " WHERE name = m.name" + newestPublication + ") p ON true"
 }
 
 func scanModel(row pgx.Row) (*Model, error) {

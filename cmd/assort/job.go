@@ -200,7 +200,7 @@ func fitJob(ctx context.Context, e *env, s *fitSpec) (*summary, error) {
 		return nil, err
 	}
 	src, passes := rd.scaled(rt, scaling)
-	passes.workers = workerCount(s.workers)
+	passes.workers = plan.workers
 	if s.restarts == 0 {
 		// Record the number of starts actually made, for this run and any
 		// retry of it (the rows are the same).

@@ -244,7 +244,6 @@ type fitData struct {
 	read    int64        // rows the query returned
 	skipped int64        // rows left out under --missing skip
 	spill   spillSpec
-	counts  readCounts // of the scoring passes' reads, with --sample
 }
 
 // readRows runs the read pass of a fit as s and plan ask: into a store
@@ -371,7 +370,7 @@ func (rd *fitData) scaled(rt *readTx, sc fit.Scaling) (fit.Source, rowPasses) {
 			sc.Apply(x.X, x.X)
 			scp = &sc
 		}
-		return x, rowPasses{open: rt.feed(rd.plan.readRows, scp, &rd.counts), rows: rd.usable()}
+		return x, rowPasses{open: rt.feed(rd.plan.readRows, scp, nil), rows: rd.usable()}
 	}
 	st := rd.stored
 	n := int64(st.store().Len())
