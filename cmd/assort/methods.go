@@ -208,8 +208,15 @@ func (sm *scoringModel) results(b *batch, scratch []float64) {
 		}
 		return
 	}
+	sm.posteriors(b, func(int) []float64 { return scratch[:sm.k] })
+}
+
+// posteriors scores every row of b under the mixture, writing its
+// memberships into mem(i) and its hard outputs into b.
+func (sm *scoringModel) posteriors(b *batch, mem func(i int) []float64) {
+	d := sm.d
 	for i := range b.n {
-		label, p, logd, mahal := sm.mx.Posterior(scratch[:sm.k], b.x[i*d:(i+1)*d])
+		label, p, logd, mahal := sm.mx.Posterior(mem(i), b.x[i*d:(i+1)*d])
 		b.label[i], b.prob[i], b.logd[i], b.dist[i] = int32(label), p, logd, mahal
 	}
 }
@@ -218,11 +225,8 @@ func (sm *scoringModel) results(b *batch, scratch []float64) {
 // mixture into b.mem, and its hard outputs as results does.
 func (sm *scoringModel) memberships(b *batch, _ []float64) {
 	b.outputs(sm.k, true)
-	d, k := sm.d, sm.k
-	for i := range b.n {
-		label, p, logd, mahal := sm.mx.Posterior(b.mem[i*k:(i+1)*k], b.x[i*d:(i+1)*d])
-		b.label[i], b.prob[i], b.logd[i], b.dist[i] = int32(label), p, logd, mahal
-	}
+	k := sm.k
+	sm.posteriors(b, func(i int) []float64 { return b.mem[i*k : (i+1)*k] })
 }
 
 // choose returns the index of the best candidate by criterion, the

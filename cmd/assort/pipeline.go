@@ -293,6 +293,7 @@ func (p *pipeline) stop() error {
 type passSpec struct {
 	name    string // for the progress line
 	total   int64  // rows the pass will produce, 0 when not known
+	want    int64  // rows an earlier pass saw, which this one must see too; -1 when none did
 	open    feedFunc
 	workers int
 	k       int
@@ -373,6 +374,9 @@ func copyPass(ctx context.Context, e *env, conn *pgx.Conn, table pgx.Identifier,
 	}
 	if err := p.stop(); err != nil {
 		return res, err
+	}
+	if ps.want >= 0 && res.rows != ps.want {
+		return res, passMismatch(ps.want, res.rows)
 	}
 	return res, nil
 }
