@@ -112,10 +112,34 @@ func (e *Encoder) Rows() int64 { return e.rows }
 // Len is the number of bytes gathered and not yet handed on.
 func (e *Encoder) Len() int { return len(e.buf) }
 
+// CopyMode is how CopyIn asks the server to store the rows.
+type CopyMode int
+
+const (
+	// CopyPlain is an ordinary COPY FROM: the rows are stored as any
+	// transaction's rows are, and a later VACUUM sets their hint bits,
+	// marks their pages all-visible and in time freezes them.
+	CopyPlain CopyMode = iota
+	// CopyFrozen adds FREEZE: the rows are stored already frozen, on pages
+	// marked all-visible (PostgreSQL 14 and later), so that a write-once
+	// table never needs a VACUUM to freeze it, reads of it set no hint
+	// bits, and index-only scans work at once. The server allows it only
+	// for a table created or truncated earlier in the same transaction
+	// (and not in a savepoint since), with no cursor open; it then fails
+	// the COPY, naming the reason. Other sessions see the rows with the
+	// commit, as they see the new table; the one departure from MVCC,
+	// noted in PostgreSQL's documentation of COPY, is that a transaction
+	// whose snapshot predates the commit also sees them if it reads the
+	// new table, where it would otherwise find it empty.
+	CopyFrozen
+)
+
 // CopyInSQL is the statement CopyIn runs:
 //
 //	COPY "schema"."table" ("c1", "c2") FROM STDIN (FORMAT binary)
-func CopyInSQL(table pgx.Identifier, columns []string) string {
+//
+// with ", FREEZE" after "binary" when mode is CopyFrozen.
+func CopyInSQL(table pgx.Identifier, columns []string, mode CopyMode) string {
 	var b strings.Builder
 	b.WriteString("COPY ")
 	b.WriteString(table.Sanitize())
@@ -126,7 +150,11 @@ func CopyInSQL(table pgx.Identifier, columns []string) string {
 		}
 		b.WriteString(pgx.Identifier{c}.Sanitize())
 	}
-	b.WriteString(") FROM STDIN (FORMAT binary)")
+	b.WriteString(") FROM STDIN (FORMAT binary")
+	if mode == CopyFrozen {
+		b.WriteString(", FREEZE")
+	}
+	b.WriteString(")")
 	return b.String()
 }
 
@@ -137,7 +165,8 @@ var errProducerPanicked = errors.New("row producer panicked")
 // STDIN and returns the number of rows the server stored. next appends one
 // or more whole rows to e, each of len(columns) fields, and reports
 // whether there are more; an error from next ends the COPY (the server
-// stores nothing) and is returned.
+// stores nothing) and is returned. mode says whether the rows are stored
+// frozen (see CopyFrozen for when the server allows it).
 //
 // next runs on the caller's goroutine, so that a panic in it reaches the
 // caller (after the COPY has been failed and the connection freed);
@@ -145,11 +174,11 @@ var errProducerPanicked = errors.New("row producer panicked")
 // are handed over in pieces of about 1 MiB: memory does not grow with
 // their number. Run CopyIn inside a transaction to make the rows appear
 // together with the rest of a write.
-func CopyIn(ctx context.Context, conn *pgconn.PgConn, table pgx.Identifier, columns []string, next func(e *Encoder) (more bool, err error)) (int64, error) {
+func CopyIn(ctx context.Context, conn *pgconn.PgConn, table pgx.Identifier, columns []string, mode CopyMode, next func(e *Encoder) (more bool, err error)) (int64, error) {
 	if len(columns) == 0 {
 		panic("dbio: CopyIn with no columns")
 	}
-	sql := CopyInSQL(table, columns)
+	sql := CopyInSQL(table, columns, mode)
 	name := table.Sanitize()
 
 	pr, pw := io.Pipe()

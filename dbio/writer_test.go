@@ -70,10 +70,16 @@ func TestEncoderMisuse(t *testing.T) {
 }
 
 func TestCopyInSQL(t *testing.T) {
-	got := CopyInSQL(pgx.Identifier{"s", `Out"put`}, []string{"key", "g r"})
-	const want = `COPY "s"."Out""put" ("key", "g r") FROM STDIN (FORMAT binary)`
-	if got != want {
-		t.Errorf("CopyInSQL = %s, want %s", got, want)
+	for _, c := range []struct {
+		mode CopyMode
+		want string
+	}{
+		{CopyPlain, `COPY "s"."Out""put" ("key", "g r") FROM STDIN (FORMAT binary)`},
+		{CopyFrozen, `COPY "s"."Out""put" ("key", "g r") FROM STDIN (FORMAT binary, FREEZE)`},
+	} {
+		if got := CopyInSQL(pgx.Identifier{"s", `Out"put`}, []string{"key", "g r"}, c.mode); got != c.want {
+			t.Errorf("CopyInSQL(mode %d) = %s, want %s", c.mode, got, c.want)
+		}
 	}
 }
 
@@ -117,7 +123,7 @@ func TestCopyInRoundTrip(t *testing.T) {
 				t.Fatalf("read %d keys, want %d", keys.Len(), n)
 			}
 			i := 0
-			rows, err := CopyIn(ctx, conn.PgConn(), pgx.Identifier{schema, out}, []string{"key", "cluster", "score"}, func(e *Encoder) (bool, error) {
+			rows, err := CopyIn(ctx, conn.PgConn(), pgx.Identifier{schema, out}, []string{"key", "cluster", "score"}, CopyPlain, func(e *Encoder) (bool, error) {
 				for range 7 { // several rows per call
 					if i == keys.Len() {
 						return false, nil
@@ -148,6 +154,98 @@ func TestCopyInRoundTrip(t *testing.T) {
 			}
 		})
 	}
+}
+
+// TestCopyInFrozen checks CopyFrozen against PostgreSQL's rules for COPY
+// FREEZE (its documentation of COPY): into a table created in the same
+// transaction the rows arrive frozen on all-visible pages, which ANALYZE
+// then counts in pg_class.relallvisible (every page, where a plain COPY
+// leaves none); into an older table the server refuses, and nothing is
+// stored.
+func TestCopyInFrozen(t *testing.T) {
+	ctx := t.Context()
+	conn := dbtest.Conn(t)
+	_, schema := dbtest.Schema(t)
+	const n = 20_000
+	rows := func() func(e *Encoder) (bool, error) {
+		i := 0
+		return func(e *Encoder) (bool, error) {
+			for range 100 {
+				e.Begin(2)
+				e.Int8(int64(i))
+				e.Int4(int32(i % 7))
+				i++
+			}
+			return i < n, nil
+		}
+	}
+	for _, c := range []struct {
+		name    string
+		mode    CopyMode
+		visible bool // every page all-visible after ANALYZE
+	}{
+		{"plain", CopyPlain, false},
+		{"frozen", CopyFrozen, true},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			tbl := pgx.Identifier{schema, "new_" + c.name}
+			tx, err := conn.Begin(ctx)
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer tx.Rollback(context.WithoutCancel(ctx))
+			if _, err := tx.Exec(ctx, "CREATE TABLE "+tbl.Sanitize()+" (key bigint NOT NULL, cluster int4 NOT NULL)"); err != nil {
+				t.Fatal(err)
+			}
+			got, err := CopyIn(ctx, conn.PgConn(), tbl, []string{"key", "cluster"}, c.mode, rows())
+			if err != nil {
+				t.Fatal(err)
+			}
+			if got != n {
+				t.Fatalf("stored %d rows, want %d", got, n)
+			}
+			if _, err := tx.Exec(ctx, "ANALYZE "+tbl.Sanitize()); err != nil {
+				t.Fatal(err)
+			}
+			if err := tx.Commit(ctx); err != nil {
+				t.Fatal(err)
+			}
+			var pages, visible int64
+			if err := conn.QueryRow(ctx, "SELECT relpages, relallvisible FROM pg_class WHERE oid = $1::regclass", tbl.Sanitize()).Scan(&pages, &visible); err != nil {
+				t.Fatal(err)
+			}
+			if pages < 2 {
+				t.Fatalf("relpages = %d: too few rows to tell", pages)
+			}
+			want := int64(0)
+			if c.visible {
+				want = pages
+			}
+			if visible != want {
+				t.Errorf("relallvisible = %d of %d pages, want %d", visible, pages, want)
+			}
+		})
+	}
+
+	t.Run("older table", func(t *testing.T) {
+		tbl := pgx.Identifier{schema, "old"}
+		mustExec(t, conn, "CREATE TABLE "+tbl.Sanitize()+" (key bigint NOT NULL, cluster int4 NOT NULL)")
+		_, err := CopyIn(ctx, conn.PgConn(), tbl, []string{"key", "cluster"}, CopyFrozen, rows())
+		var pgErr *pgconn.PgError
+		// 55000 object_not_in_prerequisite_state, PostgreSQL 15's code for
+		// "cannot perform COPY FREEZE because the table was not created or
+		// truncated in the current subtransaction".
+		if !errors.As(err, &pgErr) || pgErr.Code != "55000" || !strings.Contains(pgErr.Message, "FREEZE") {
+			t.Fatalf("err = %v, want the server's refusal of FREEZE (55000)", err)
+		}
+		var stored int64
+		if err := conn.QueryRow(ctx, "SELECT count(*) FROM "+tbl.Sanitize()).Scan(&stored); err != nil {
+			t.Fatal(err)
+		}
+		if stored != 0 {
+			t.Errorf("%d rows stored after the refusal", stored)
+		}
+	})
 }
 
 // TestCopyInErrors checks that a failing COPY reports the right cause and
@@ -211,7 +309,7 @@ func TestCopyInErrors(t *testing.T) {
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
-			rows, err := CopyIn(ctx, conn.PgConn(), c.table, []string{"key", "cluster"}, c.next)
+			rows, err := CopyIn(ctx, conn.PgConn(), c.table, []string{"key", "cluster"}, CopyPlain, c.next)
 			if err == nil {
 				t.Fatalf("no error; %d rows", rows)
 			}
@@ -252,7 +350,7 @@ func TestCopyInPanic(t *testing.T) {
 				t.Errorf("recovered %q, want the producer's panic", got)
 			}
 		}()
-		_, _ = CopyIn(ctx, conn.PgConn(), tbl, []string{"key"}, func(e *Encoder) (bool, error) {
+		_, _ = CopyIn(ctx, conn.PgConn(), tbl, []string{"key"}, CopyPlain, func(e *Encoder) (bool, error) {
 			panic("producer bug")
 		})
 	}()
@@ -294,7 +392,7 @@ func BenchmarkWrite(b *testing.B) {
 		b.Fatal(err)
 	}
 	psql := psqlPath(b)
-	copySQL := CopyInSQL(tbl, []string{"key", "cluster", "score"})
+	copySQL := CopyInSQL(tbl, []string{"key", "cluster", "score"}, CopyPlain)
 	var ours, theirs time.Duration
 	bestOurs, bestTheirs := time.Duration(math.MaxInt64), time.Duration(math.MaxInt64)
 	b.ResetTimer()
@@ -304,7 +402,7 @@ func BenchmarkWrite(b *testing.B) {
 		b.StartTimer()
 		start := time.Now()
 		i := 0
-		got, err := CopyIn(ctx, conn.PgConn(), tbl, []string{"key", "cluster", "score"}, func(e *Encoder) (bool, error) {
+		got, err := CopyIn(ctx, conn.PgConn(), tbl, []string{"key", "cluster", "score"}, CopyPlain, func(e *Encoder) (bool, error) {
 			for range 64 {
 				if i == n {
 					return false, nil

@@ -114,7 +114,7 @@ func loadTable(ctx context.Context, conn *pgx.Conn, table pgx.Identifier, n int6
 	}
 	m := newMixture(seed)
 	x := make([]float64, features)
-	got, err := dbio.CopyIn(ctx, conn.PgConn(), table, cols, func(e *dbio.Encoder) (bool, error) {
+	got, err := dbio.CopyIn(ctx, conn.PgConn(), table, cols, dbio.CopyFrozen, func(e *dbio.Encoder) (bool, error) {
 		for range 1024 {
 			if m.drawn == n {
 				return false, nil

@@ -314,7 +314,9 @@ type passResult struct {
 }
 
 // copyPass runs ps and COPYs what it encodes into table's columns, within
-// whatever transaction conn is in. An error of the feed (a bad row, a lost
+// whatever transaction conn is in, which must have created table: the rows
+// are written frozen (dbio.CopyFrozen), as every table assort fills is new
+// and written once. An error of the feed (a bad row, a lost
 // read) is returned as it is; the COPY is then abandoned.
 func copyPass(ctx context.Context, e *env, conn *pgx.Conn, table pgx.Identifier, cols []string, ps passSpec) (passResult, error) {
 	res := passResult{sizes: make([]int64, ps.k)}
@@ -331,7 +333,7 @@ func copyPass(ctx context.Context, e *env, conn *pgx.Conn, table pgx.Identifier,
 		called  bool
 		pipeErr error
 	)
-	_, err = dbio.CopyIn(ctx, conn.PgConn(), table, cols, func(enc *dbio.Encoder) (bool, error) {
+	_, err = dbio.CopyIn(ctx, conn.PgConn(), table, cols, dbio.CopyFrozen, func(enc *dbio.Encoder) (bool, error) {
 		if ps.started != nil && !called && (res.rows > 0 || pos > 0) {
 			called = true
 			if err := ps.started(); err != nil {
