@@ -364,16 +364,42 @@ func (r *lloydRun) pass(ctx context.Context, c []float64) error {
 			}
 			p.counts[l]++
 			p.inertia += dist[i]
-			s := p.sums[int(l)*d : int(l)*d+d]
-			for f, v := range rows[i*d : i*d+d] {
-				s[f] += v
-			}
 		}
+		addToSums(p.sums, lab, rows, d)
 		red.done(ci, p)
 		return nil
 	})
 	r.evals += int64(len(r.labels)) * int64(k)
 	return err
+}
+
+// addToSums adds each row x_i of rows (row-major, d features) to its
+// cluster's sums, sums[l_i·d : (l_i+1)·d], the rows in order, so every
+// sum is the same whatever the unrolling. Eight features, the common
+// case the assignment kernels also unroll, get a loop without bounds
+// checks.
+func addToSums(sums []float64, label []int32, rows []float64, d int) {
+	if d == 8 {
+		for i, l := range label {
+			s := (*[8]float64)(sums[int(l)*8:])
+			x := (*[8]float64)(rows[i*8:])
+			s[0] += x[0]
+			s[1] += x[1]
+			s[2] += x[2]
+			s[3] += x[3]
+			s[4] += x[4]
+			s[5] += x[5]
+			s[6] += x[6]
+			s[7] += x[7]
+		}
+		return
+	}
+	for i, l := range label {
+		s := sums[int(l)*d : int(l)*d+d]
+		for f, v := range rows[i*d : i*d+d] {
+			s[f] += v
+		}
+	}
 }
 
 // reseedCandidate is a row that may re-seed an empty cluster.
