@@ -75,7 +75,7 @@ type config struct {
 	// each round times the read floor, the write floors and an assort
 	// k-means fit, one after the other, so that the machine's changing load
 	// falls on floors and assort alike; medians over the rounds are used.
-	// 0 means 3.
+	// 0 means 5.
 	Rounds int
 	// Seed seeds the invented data. 0 means 1.
 	Seed uint64
@@ -102,7 +102,7 @@ func (c config) withDefaults() config {
 		c.Rows = 10 * SmallRows
 	}
 	if c.Rounds == 0 {
-		c.Rounds = 3
+		c.Rounds = 5
 	}
 	if c.Seed == 0 {
 		c.Seed = 1
@@ -181,7 +181,7 @@ func parseFlags(args []string, stderr io.Writer) (config, error) {
 	fs.StringVar(&c.FitTest, "fit-test", "", "test binary of package fit (go test -c ./fit/); empty: numerics benchmarks not run")
 	fs.StringVar(&rows, "rows", "1e7", "rows of the large table (1e7, 10000000...); 1e6 or less skips the large part")
 	fs.StringVar(&c.JSON, "json", "", "also write the results as JSON to this file")
-	fs.IntVar(&c.Rounds, "rounds", 3, "rounds of read floor, write floors and k-means fit on the small table; medians are used")
+	fs.IntVar(&c.Rounds, "rounds", 5, "rounds of read floor, write floors and k-means fit on the small table; medians are used")
 	fs.Uint64Var(&c.Seed, "seed", 1, "seed of the invented data")
 	fs.StringVar(&c.Memory, "memory", "256MiB", "--memory budget given to assort on the large table")
 	fs.StringVar(&c.BenchTime, "benchtime", "1s", "-test.benchtime of the fit benchmarks")
