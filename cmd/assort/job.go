@@ -398,9 +398,9 @@ func scaleFeatures(ctx context.Context, e *env, s *fitSpec, names []string, src 
 
 // defaultRestarts is the number of starts when --restarts is not given:
 // k-means makes 10 below 10⁵ rows, 4 below 10⁶ and 1 from there, where
-// every start costs full passes over a large table and greedy k-means++
-// seeding on that many rows varies little between starts; mixtures make 4
-// below 10⁶ rows and 2 from there.
+// every start costs full passes over a large table and seeding on that
+// many rows (k-means|| from 10⁶ rows) varies little between starts;
+// mixtures make 4 below 10⁶ rows and 2 from there.
 func defaultRestarts(method string, n int) int {
 	switch {
 	case method == "gmm" && n < 1_000_000:
