@@ -4,7 +4,7 @@ GO ?= go
 export PATH := $(PATH):/usr/local/go/bin
 FUZZTIME ?= 5s
 
-.PHONY: setup demo test vet fmt unit fuzz bench build
+.PHONY: setup demo test vet fmt unit fused fuzz bench build
 
 build:
 	$(GO) build -o bin/assort ./cmd/assort
@@ -15,7 +15,7 @@ setup:
 demo: setup build
 	./bin/assort demo
 
-test: setup vet fmt unit fuzz
+test: setup vet fmt unit fused fuzz
 
 vet:
 	$(GO) vet ./...
@@ -26,6 +26,17 @@ fmt:
 
 unit:
 	$(GO) test -count=1 ./...
+
+# Package fit and the SQL functions' tests again, compiled for x86-64-v3,
+# where Go may fuse multiply-adds: kernels, scoring and SQL functions must
+# still agree bit for bit. Skipped (and said so) on a processor without
+# AVX2 and FMA.
+fused:
+	@if [ "$$($(GO) env GOARCH)" = amd64 ] && grep -qw avx2 /proc/cpuinfo && grep -qw fma /proc/cpuinfo; then \
+		echo "GOAMD64=v3 go test ./fit/ and the SQL functions' tests"; \
+		GOAMD64=v3 $(GO) test -count=1 ./fit/ && \
+		GOAMD64=v3 $(GO) test -count=1 -run 'Function' ./cmd/assort/; \
+	else echo "fused: not an x86-64-v3 processor; the fused-arithmetic check is skipped"; fi
 
 fuzz:
 	$(GO) test -run '^$$' -fuzz '^FuzzDecoder$$' -fuzztime $(FUZZTIME) ./dbio/

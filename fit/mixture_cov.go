@@ -114,7 +114,10 @@ func cholPacked(dst, a []float64, d int) bool {
 // forwardPacked solves L y = z for y by forward substitution, L lower
 // triangular packed by rows (see cholPacked) with reciprocal diagonal inv
 // (inv[a] = 1/L_aa), and returns ‖y‖² = zᵀ (L Lᵀ)⁻¹ z, the squared
-// Mahalanobis length of z. y may alias z.
+// Mahalanobis length of z. y may alias z. Every product is rounded
+// before it is added (float64(a·b), which the Go specification says keeps
+// the compiler from fusing a multiply-add), so the result has the same
+// bits on every architecture, and as the SQL scoring functions compute it.
 func forwardPacked(y, l, inv, z []float64) float64 {
 	var m float64
 	off := 0
@@ -123,11 +126,11 @@ func forwardPacked(y, l, inv, z []float64) float64 {
 		row := l[off : off+a]
 		ya := y[:a]
 		for b, v := range row {
-			s -= v * ya[b]
+			s -= float64(v * ya[b])
 		}
 		s *= inv[a]
 		y[a] = s
-		m += s * s
+		m += float64(s * s)
 		off += a + 1
 	}
 	return m

@@ -120,7 +120,8 @@ func TestFactorsAgainstGonum(t *testing.T) {
 }
 
 // mahalFromFactors is the squared Mahalanobis length as Factors documents
-// it: z by forward substitution (or the diagonal shortcut), summed z².
+// it: z by forward substitution (or the diagonal shortcut), summed z²,
+// every product rounded before it is added, as PostgreSQL rounds it.
 func mahalFromFactors(x, mu, l, inv []float64, diagonal bool) float64 {
 	d := len(x)
 	z := make([]float64, d)
@@ -129,12 +130,12 @@ func mahalFromFactors(x, mu, l, inv []float64, diagonal bool) float64 {
 		s := x[a] - mu[a]
 		if !diagonal {
 			for b := range a {
-				s -= l[a*(a+1)/2+b] * z[b]
+				s -= float64(l[a*(a+1)/2+b] * z[b])
 			}
 		}
 		s *= inv[a]
 		z[a] = s
-		m += s * s
+		m += float64(s * s)
 	}
 	return m
 }
@@ -172,7 +173,7 @@ func TestFactorsRepeatPosterior(t *testing.T) {
 				label, prob, logd, _ := m.Posterior(dst, x)
 				best := math.Inf(-1)
 				for j := range k {
-					l[j] = logNorm[j] - 0.5*mahalFromFactors(x, mu[j*d:(j+1)*d], chol[j*q:(j+1)*q], invDiag[j*d:(j+1)*d], diagonal)
+					l[j] = logNorm[j] - float64(0.5*mahalFromFactors(x, mu[j*d:(j+1)*d], chol[j*q:(j+1)*q], invDiag[j*d:(j+1)*d], diagonal))
 					best = max(best, l[j])
 				}
 				wantLabel := -1

@@ -32,7 +32,7 @@ func (m *MixtureResult) Posterior(dst []float64, row []float64) (label int, prob
 	y = y[:d]
 	best := math.Inf(-1)
 	for j := range k {
-		l := mm.logNorm[j] - 0.5*mm.mahal2(y, row, j)
+		l := mm.logNorm[j] - float64(0.5*mm.mahal2(y, row, j))
 		dst[j] = l
 		best = max(best, l)
 	}
@@ -53,6 +53,7 @@ func (m *MixtureResult) Posterior(dst []float64, row []float64) (label int, prob
 }
 
 // mahal2 returns (x − μ_j)ᵀ Σ_j⁻¹ (x − μ_j), using y (length d) as scratch.
+// Products are rounded before they are added (see forwardPacked).
 func (m *mixModel) mahal2(y, x []float64, j int) float64 {
 	d := m.d
 	mu := m.mean[j*d : (j+1)*d]
@@ -61,7 +62,7 @@ func (m *mixModel) mahal2(y, x []float64, j int) float64 {
 		var s float64
 		for a, v := range x {
 			t := (v - mu[a]) * inv[a]
-			s += t * t
+			s += float64(t * t)
 		}
 		return s
 	}

@@ -90,9 +90,10 @@ type FunctionModel struct {
 //	S.NAME_vV_log_density(f1, ..., fd)  float8  (mixtures)
 //
 // What they compute, with the arithmetic of the Go scoring in the same
-// order, so that every float8 result has the same bits as Go's on amd64
-// (PostgreSQL's + − × ÷ are IEEE double, and Go does not fuse
-// multiply-add there):
+// order, so that every float8 result has the same bits as Go's
+// (PostgreSQL's + − × ÷ are IEEE double, and the Go scoring rounds every
+// product before adding it, float64(a·b), which the Go specification says
+// keeps the compiler from fusing a multiply-add on any architecture):
 //
 //	y_a = (x_a − c_a) / s_a            (scaled models; else y_a = x_a)
 //	k-means:  D_j = Σ_a (y_a − μ_ja)·(y_a − μ_ja), summed from a = 0 up;
