@@ -15,7 +15,7 @@ func (r Registry) publishedSQL(name string) string {
 }
 
 // newestPublication picks, among a model's publications, the one in force.
-const newestPublication = " ORDER BY published_at DESC LIMIT 1"
+const newestPublication = " ORDER BY seq DESC LIMIT 1"
 
 // published returns the version the stable views of model show, 0 for none.
 func (r Registry) published(ctx context.Context, q Querier, model string) (int, error) {
@@ -106,8 +106,9 @@ func (r Registry) Prune(ctx context.Context, tx pgx.Tx, model string, keep int) 
 	return pruned, nil
 }
 
-// Drop removes version v: its tables and its registry rows. The published
-// version cannot be dropped; publish another one first.
+// Drop removes version v: its tables and its registry rows. Its number is
+// kept in retired_versions, so that no later version takes it. The
+// published version cannot be dropped; publish another one first.
 func (r Registry) Drop(ctx context.Context, tx pgx.Tx, v Version) error {
 	var status, method string
 	var d int
@@ -132,11 +133,17 @@ func (r Registry) Drop(ctx context.Context, tx pgx.Tx, v Version) error {
 	if _, err := tx.Exec(ctx, "DELETE FROM "+r.table("models")+" WHERE name = $1 AND version = $2", v.Model, v.N); err != nil {
 		return fmt.Errorf("drop %s: %w", v, err)
 	}
+	// Keep v's number from being given again (see Reserve).
+	if _, err := tx.Exec(ctx, "INSERT INTO "+r.table("retired_versions")+` AS t (name, last_version) VALUES ($1, $2)
+		ON CONFLICT (name) DO UPDATE SET last_version = greatest(t.last_version, excluded.last_version)`, v.Model, v.N); err != nil {
+		return fmt.Errorf("drop %s: %w", v, err)
+	}
 	return nil
 }
 
 // DropModel removes every version of model, its stable views and its
-// registry rows.
+// registry rows, retired numbers included: a model of the same name made
+// later starts again at version 1.
 func (r Registry) DropModel(ctx context.Context, tx pgx.Tx, model string) error {
 	rows, err := tx.Query(ctx, "SELECT version, cardinality(features), method FROM "+r.table("models")+" WHERE name = $1 FOR UPDATE", model)
 	if err != nil {
@@ -164,8 +171,10 @@ func (r Registry) DropModel(ctx context.Context, tx pgx.Tx, model string) error 
 			return err
 		}
 	}
-	if _, err := tx.Exec(ctx, "DELETE FROM "+r.table("models")+" WHERE name = $1", model); err != nil {
-		return fmt.Errorf("drop %s: %w", model, err)
+	for _, table := range []string{"models", "retired_versions"} {
+		if _, err := tx.Exec(ctx, "DELETE FROM "+r.table(table)+" WHERE name = $1", model); err != nil {
+			return fmt.Errorf("drop %s: %w", model, err)
+		}
 	}
 	return nil
 }

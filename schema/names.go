@@ -22,7 +22,7 @@ var (
 
 // registryTables are the registry's own relations; no model may take these
 // names.
-var registryTables = []string{"models", "components", "publications", "migrations", "candidates", "comparisons", "comparison_cells", "scorings"}
+var registryTables = []string{"models", "components", "publications", "migrations", "candidates", "comparisons", "comparison_cells", "scorings", "retired_versions"}
 
 // ValidateModelName reports why name cannot name a model, or nil.
 func ValidateModelName(name string) error {

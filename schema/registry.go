@@ -121,13 +121,16 @@ func (r Registry) Recover(ctx context.Context, q Querier, model string) ([]int, 
 }
 
 // Reserve records the start of a run: it takes the next version number of
-// m.Name, inserts m with status 'running' and sets m.Version. Call it in its
+// m.Name (one above every version in the registry and every dropped one,
+// so a number is never given twice while the name lives), inserts m with
+// status 'running' and sets m.Version. Call it in its
 // own short transaction (or autocommit) so that a DBA sees the run.
 func (r Registry) Reserve(ctx context.Context, q Querier, m *Model) error {
 	err := q.QueryRow(ctx, "INSERT INTO "+r.table("models")+
 		` (name, version, status, method, k, features, key_column, key_type, query, scale,
 		   seed, restarts, max_iter, tol, covariance, reg, membership_floor, backend_pid, tool_version)
-		 SELECT $1, coalesce(max(version), 0) + 1, 'running', $2, $3, $4, $5, $6, $7, $8,
+		 SELECT $1, greatest(coalesce(max(version), 0), coalesce((SELECT last_version FROM `+r.table("retired_versions")+` WHERE name = $1), 0)) + 1,
+		   'running', $2, $3, $4, $5, $6, $7, $8,
 		   $9, $10, $11, $12, $13, $14, $15, pg_backend_pid(), $16
 		 FROM `+r.table("models")+` WHERE name = $1
 		 RETURNING version, started_at`,

@@ -190,7 +190,7 @@ func snapshot(t *testing.T, w *workspace) string {
 		FROM pg_class WHERE relnamespace = $1::regnamespace AND relkind IN ('r', 'v', 'm', 'p')`, &rels, w.schema)
 	w.scalar(t, `SELECT coalesce(string_agg(proname, ',' ORDER BY proname), '') FROM pg_proc WHERE pronamespace = $1::regnamespace`, &funcs, w.schema)
 	var counts []string
-	for _, table := range []string{"models", "components", "publications", "candidates", "comparisons", "comparison_cells", "scorings"} {
+	for _, table := range []string{"models", "components", "publications", "candidates", "comparisons", "comparison_cells", "scorings", "retired_versions"} {
 		var n, sum string
 		w.scalar(t, "SELECT count(*)::text FROM "+w.table(table), &n)
 		w.scalar(t, "SELECT coalesce(md5(string_agg(x::text, ',' ORDER BY x::text)), '') FROM "+w.table(table)+" x", &sum)

@@ -40,6 +40,10 @@ func TestPublishPruneDrop(t *testing.T) {
 	if who != "1/true,2/true,1/true" {
 		t.Fatalf("publication history %q", who)
 	}
+	// The publication in force is the newest by sequence, not by clock: a
+	// server clock stepped back a day must not bring life@2 back (the
+	// refusal to drop life@1 below checks that life@1 is still published).
+	w.exec(t, "UPDATE "+w.table("publications")+" SET published_at = published_at - interval '1 day' WHERE seq = (SELECT max(seq) FROM "+w.table("publications")+")")
 	fitN(" WHERE id <= 40", "--no-publish") // v3
 	fitN(" WHERE id <= 30", "--no-publish") // v4
 
@@ -86,13 +90,28 @@ func TestPublishPruneDrop(t *testing.T) {
 			t.Errorf("assort %v: exit %d, want %d with %q; output:\n%s%s", b.args, code, b.code, b.msg, out, stderr)
 		}
 	}
+	// Dropping the newest version retires its number: the next fit is
+	// life@5, never a second life@4.
 	mustAssort(t, w.args("drop", "life@4")...)
+	fitN(" WHERE id <= 20", "--no-publish")
+	var versions string
+	w.scalar(t, "SELECT string_agg(version::text, ',' ORDER BY version) FROM "+w.table("models"), &versions)
+	if versions != "1,2,3,5" {
+		t.Fatalf("versions after dropping life@4 and fitting again: %s, want 1,2,3,5", versions)
+	}
 	mustAssort(t, w.args("drop", "life")...)
 	var left int
-	w.scalar(t, "SELECT count(*) FROM "+w.table("models"), &left)
+	w.scalar(t, "SELECT (SELECT count(*) FROM "+w.table("models")+") + (SELECT count(*) FROM "+w.table("retired_versions")+")", &left)
 	if left != 0 {
 		t.Fatalf("%d registry rows left after dropping the model", left)
 	}
+	// A model of the same name made afresh starts again at 1.
+	fitN("")
+	w.scalar(t, "SELECT string_agg(version::text, ',') FROM "+w.table("models"), &versions)
+	if versions != "1" {
+		t.Fatalf("versions of a new model of a dropped name: %s, want 1", versions)
+	}
+	mustAssort(t, w.args("drop", "life")...)
 	w.scalar(t, `SELECT coalesce(string_agg(relname, ','), '') FROM pg_class WHERE relnamespace = $1::regnamespace AND relname LIKE 'life%'`, &tables, w.schema)
 	if tables != "" {
 		t.Fatalf("relations left after dropping the model: %s", tables)
@@ -144,3 +163,42 @@ func TestStageThenPublish(t *testing.T) {
 		t.Fatalf("after publish the view shows %d rows, want 50", shown)
 	}
 }
+
+// TestMigrationOrdersPublications upgrades a registry that has
+// publications made before migration 6: they are numbered in the order of
+// their timestamps (not of their rows), the one in force stays the newest
+// by clock, and later publications number on from there.
+func TestMigrationOrdersPublications(t *testing.T) {
+	w := newWorkspace(t)
+	w.blobs(t, "pts", []int{30, 20, 10}, 3)
+	q := "SELECT id, x, y FROM " + w.table("pts")
+	for range 3 { // life@1, @2, @3, each published in turn
+		mustAssort(t, w.args("fit", "life", "--query", q, "--key", "id", "--k", "3")...)
+	}
+	// Back to the registry as migration 5 left it, with the timestamps
+	// saying the publications were made in the order @2, @3, @1.
+	pub := w.table("publications")
+	w.exec(t, "DROP TABLE "+w.table("retired_versions"))
+	w.exec(t, "ALTER TABLE "+pub+" DROP COLUMN seq")
+	w.exec(t, "CREATE INDEX publications_name_time ON "+pub+" (name, published_at DESC)")
+	w.exec(t, "DELETE FROM "+w.table("migrations")+" WHERE version = 6")
+	w.exec(t, "UPDATE "+pub+" SET published_at = timestamptz '2026-01-01' + (((version + 1) % 3) * interval '1 hour')")
+
+	mustAssort(t, w.args("migrate")...)
+	var order string
+	w.scalar(t, "SELECT string_agg(version || '@' || seq, ',' ORDER BY seq) FROM "+pub, &order)
+	if order != "2@1,3@2,1@3" {
+		t.Fatalf("publications after the migration (version@seq): %s, want 2@1,3@2,1@3", order)
+	}
+	code, out, stderr := assort(t, w.args("drop", "life@1")...)
+	if code != exitFailure || !strings.Contains(stderr, "published version") {
+		t.Fatalf("drop life@1 after the migration: exit %d, want %d, the published version; output:\n%s%s", code, exitFailure, out, stderr)
+	}
+	mustAssort(t, w.args("publish", "life@2")...)
+	w.scalar(t, "SELECT string_agg(version || '@' || seq, ',' ORDER BY seq) FROM "+pub, &order)
+	if order != "2@1,3@2,1@3,2@4" {
+		t.Fatalf("publications after publishing life@2: %s, want 2@1,3@2,1@3,2@4", order)
+	}
+	mustAssort(t, w.args("drop", "life@1")...)
+}
+
