@@ -346,23 +346,57 @@ type mixFatal struct{ err error }
 func (e *mixFatal) Error() string { return e.err.Error() }
 func (e *mixFatal) Unwrap() error { return e.err }
 
-// result assembles the output of the winning run: components ordered by
-// descending weight, ties by the lexicographic order of their means.
-func (f *mixFitter) result(run *mixRun, spurious int, events []string) *MixtureResult {
-	m := run.model
-	k, d := m.k, m.d
-	order := clusterOrder(m.w, m.mean, d)
+// permuted returns a copy of m with its components in the given order:
+// component to of the copy is component order[to] of m, every parameter
+// and factor copied bit for bit.
+func (m *mixModel) permuted(order []int) *mixModel {
+	k, d, q := m.k, m.d, triLen(m.d)
+	if len(order) != k {
+		panic(fmt.Sprintf("fit: reorder %d components by %d indexes", k, len(order)))
+	}
 	out := newMixModel(k, d, m.cov)
-	q := triLen(d)
 	for to, from := range order {
 		out.w[to] = m.w[from]
 		copy(out.mean[to*d:(to+1)*d], m.mean[from*d:(from+1)*d])
 		copy(out.sigma[to*d*d:(to+1)*d*d], m.sigma[from*d*d:(from+1)*d*d])
 		copy(out.chol[to*q:(to+1)*q], m.chol[from*q:(from+1)*q])
+		copy(out.lsc[to*q:(to+1)*q], m.lsc[from*q:(from+1)*q])
 		copy(out.invDiag[to*d:(to+1)*d], m.invDiag[from*d:(from+1)*d])
 		out.logDet[to] = m.logDet[from]
 		out.logNorm[to] = m.logNorm[from]
 	}
+	return out
+}
+
+// Reordered returns a copy of m whose component to is m's component
+// order[to] (order is a permutation of 0 … K−1): Weights, Means, Covs and
+// the factors Posterior uses are moved bit for bit, so Posterior gives the
+// same memberships, permuted, and the same label on every row except where
+// two components tie exactly, which it breaks by the new order. The fit's
+// diagnostics are copied as they are. It panics unless order is a
+// permutation of 0 … K−1.
+func (m *MixtureResult) Reordered(order []int) *MixtureResult {
+	seen := make([]bool, m.K)
+	for _, j := range order {
+		if j < 0 || j >= m.K || seen[j] {
+			panic(fmt.Sprintf("fit: %v is not a permutation of %d components", order, m.K))
+		}
+		seen[j] = true
+	}
+	out := *m
+	out.model = m.model.permuted(order)
+	out.Weights = slices.Clone(out.model.w)
+	out.Means = slices.Clone(out.model.mean)
+	out.Covs = slices.Clone(out.model.sigma)
+	return &out
+}
+
+// result assembles the output of the winning run: components ordered by
+// descending weight, ties by the lexicographic order of their means.
+func (f *mixFitter) result(run *mixRun, spurious int, events []string) *MixtureResult {
+	m := run.model
+	k, d := m.k, m.d
+	out := m.permuted(clusterOrder(m.w, m.mean, d))
 	n := float64(f.data.n)
 	p := paramCount(m.cov, k, d)
 	return &MixtureResult{

@@ -228,3 +228,49 @@ func TestFactorsPanicsWithoutModel(t *testing.T) {
 	}()
 	(&MixtureResult{K: 2}).Factors()
 }
+
+// TestReorderedPermutesPosterior checks Reordered on every structure: with
+// the components swapped, Posterior gives every row the same memberships
+// swapped, bit for bit, the same membership of its label, log density and
+// distance, and the same label swapped, so reordering the components
+// changes nothing but their order (ties aside, which the first test of
+// cmd/assort's renumbering covers).
+func TestReorderedPermutesPosterior(t *testing.T) {
+	const d = 3
+	for _, c := range exportCases() {
+		t.Run(c.name, func(t *testing.T) {
+			m, err := RestoreMixture(c.cov, d, c.w, c.mu, c.sigmas)
+			if err != nil {
+				t.Fatal(err)
+			}
+			r := m.Reordered([]int{1, 0})
+			if r.Weights[0] != m.Weights[1] || r.Means[0] != m.Means[d] || r.Covs[0] != m.Covs[d*d] || m.Weights[0] == m.Weights[1] && m.Means[0] == m.Means[d] {
+				t.Fatalf("parameters not swapped: weights %v from %v", r.Weights, m.Weights)
+			}
+			rng := rand.New(rand.NewPCG(9, 9))
+			a, b := make([]float64, 2), make([]float64, 2)
+			for range 500 {
+				x := []float64{2 * rng.NormFloat64(), 2 * rng.NormFloat64(), 2 * rng.NormFloat64()}
+				la, pa, lda, da := m.Posterior(a, x)
+				lb, pb, ldb, db := r.Posterior(b, x)
+				if a[0] != b[1] || a[1] != b[0] || pa != pb || lda != ldb || da != db || (a[0] != a[1] && la != 1-lb) {
+					t.Fatalf("row %v: Posterior (%d %v %v %v %v), reordered (%d %v %v %v %v)", x, la, a, pa, lda, da, lb, b, pb, ldb, db)
+				}
+			}
+		})
+	}
+	m, err := RestoreMixture(CovDiag, 1, []float64{0.5, 0.5}, []float64{0, 1}, []float64{1, 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, bad := range [][]int{{0, 0}, {0}, {1, 2}} {
+		func() {
+			defer func() {
+				if recover() == nil {
+					t.Errorf("Reordered(%v) did not panic", bad)
+				}
+			}()
+			m.Reordered(bad)
+		}()
+	}
+}

@@ -193,6 +193,23 @@ type scoringModel struct {
 	mx      *fit.MixtureResult // mixtures
 }
 
+// reordered returns the model with its components in the given order:
+// component to is sm's component order[to], parameters copied bit for
+// bit (fit.MixtureResult.Reordered for mixtures).
+func (sm *scoringModel) reordered(order []int) *scoringModel {
+	out := &scoringModel{k: sm.k, d: sm.d}
+	if sm.mx != nil {
+		out.mx = sm.mx.Reordered(order)
+		return out
+	}
+	d := sm.d
+	out.centers = make([]float64, 0, len(sm.centers))
+	for _, j := range order {
+		out.centers = append(out.centers, sm.centers[j*d:(j+1)*d]...)
+	}
+	return out
+}
+
 // results computes every row's fitted cluster (0-based) and distance to
 // its centre: Euclidean for k-means (fit.Assign, the same arithmetic as
 // the fit's), Mahalanobis for mixtures, with the row's membership of that

@@ -23,8 +23,9 @@ import (
 // rows because they exist for every pair of versions, even when the two
 // fits saw different rows.
 //
-// It sets out.numbers, which the scoring passes apply as they encode rows,
-// renumbers out.components, and returns the total cost.
+// It renumbers out.components and sorts them by number, puts out.model's
+// components in the same order, sets out.numbers (which the scoring passes
+// apply as they encode rows) to match, and returns the total cost.
 func renumber(out *fitted, prev []schema.Component, sc fit.Scaling) float64 {
 	k, kp := len(out.components), len(prev)
 	d := len(out.components[0].FittedCenter)
@@ -62,8 +63,21 @@ func renumber(out *fitted, prev []schema.Component, sc fit.Scaling) float64 {
 		}
 		c.Cluster = int(numbers[i])
 	}
-	out.numbers = numbers
 	slices.SortFunc(out.components, func(a, b schema.Component) int { return a.Cluster - b.Cluster })
+	// Score in cluster order from here on, as `score` and the SQL
+	// functions score with the stored version: a row exactly as near to
+	// two centres then gets the same (lower-numbered) cluster from all
+	// three.
+	order := make([]int, k)
+	for i := range order {
+		order[i] = i
+	}
+	slices.SortFunc(order, func(a, b int) int { return int(numbers[a]) - int(numbers[b]) })
+	out.model = out.model.reordered(order)
+	out.numbers = make([]int32, k)
+	for to, from := range order {
+		out.numbers[to] = numbers[from]
+	}
 	return total
 }
 
