@@ -201,4 +201,3 @@ func TestMigrationOrdersPublications(t *testing.T) {
 	}
 	mustAssort(t, w.args("drop", "life@1")...)
 }
-
