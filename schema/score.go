@@ -32,36 +32,42 @@ func StagingKeyDDL(key string) string {
 	return fmt.Sprintf("ALTER TABLE %s ADD PRIMARY KEY (%s)", StagingResults.Sanitize(), pgx.Identifier{key}.Sanitize())
 }
 
-// MergeSQL moves the staged rows into v's tables. Mode "upsert" inserts new
-// keys and updates the rows whose results changed; mode "replace" empties
-// the tables first (TRUNCATE, which holds an exclusive lock on them until
-// the transaction commits), so that they hold exactly the staged rows.
-func MergeSQL(v Version, key, mode string, withMemberships bool) []string {
+// MergeSQL merges the staged rows into v's tables: it inserts new keys and
+// updates the rows whose results changed (upsert), replaces the
+// memberships of every staged key, and analyses the tables.
+func MergeSQL(v Version, key string, withMemberships bool) []string {
 	res, k := v.Results().Sanitize(), pgx.Identifier{key}.Sanitize()
-	var stmts []string
-	if mode == "replace" {
-		tables := res
-		if withMemberships {
-			tables += ", " + v.Memberships().Sanitize()
-		}
-		stmts = append(stmts, "TRUNCATE "+tables)
-	}
 	sets := make([]string, len(ResultColumns))
 	for i, c := range ResultColumns {
 		sets[i] = fmt.Sprintf("%s = EXCLUDED.%s", c, c)
 	}
-	stmts = append(stmts, fmt.Sprintf(`INSERT INTO %s AS r SELECT * FROM %s
+	stmts := []string{fmt.Sprintf(`INSERT INTO %s AS r SELECT * FROM %s
 ON CONFLICT (%s) DO UPDATE SET %s
 WHERE (r.%s) IS DISTINCT FROM (EXCLUDED.%s)`, res, StagingResults.Sanitize(), k, strings.Join(sets, ", "),
-		strings.Join(ResultColumns, ", r."), strings.Join(ResultColumns, ", EXCLUDED.")))
+		strings.Join(ResultColumns, ", r."), strings.Join(ResultColumns, ", EXCLUDED."))}
 	if withMemberships {
 		mem := v.Memberships().Sanitize()
-		if mode != "replace" {
-			stmts = append(stmts, fmt.Sprintf("DELETE FROM %s m USING %s s WHERE m.%s = s.%s", mem, StagingResults.Sanitize(), k, k))
-		}
-		stmts = append(stmts, fmt.Sprintf("INSERT INTO %s SELECT * FROM %s", mem, StagingMemberships.Sanitize()))
+		stmts = append(stmts,
+			fmt.Sprintf("DELETE FROM %s m USING %s s WHERE m.%s = s.%s", mem, StagingResults.Sanitize(), k, k),
+			fmt.Sprintf("INSERT INTO %s SELECT * FROM %s", mem, StagingMemberships.Sanitize()))
 	}
-	stmts = append(stmts, "ANALYZE "+res)
+	return append(stmts, AnalyzeSQL(v, withMemberships)...)
+}
+
+// TruncateSQL empties v's tables for a scoring that replaces their rows.
+// TRUNCATE holds an exclusive lock on them until the transaction ends, and
+// lets the rows that follow be written with COPY FREEZE.
+func TruncateSQL(v Version, withMemberships bool) string {
+	tables := v.Results().Sanitize()
+	if withMemberships {
+		tables += ", " + v.Memberships().Sanitize()
+	}
+	return "TRUNCATE " + tables
+}
+
+// AnalyzeSQL analyses v's tables after their rows changed.
+func AnalyzeSQL(v Version, withMemberships bool) []string {
+	stmts := []string{"ANALYZE " + v.Results().Sanitize()}
 	if withMemberships {
 		stmts = append(stmts, "ANALYZE "+v.Memberships().Sanitize())
 	}

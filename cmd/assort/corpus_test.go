@@ -150,6 +150,12 @@ func TestBadInputCorpus(t *testing.T) {
 		{"score a key of another type", []string{"score", "sc", "--query", "SELECT id::text AS id, x, y FROM " + w.table("pts")},
 			exitFailure, []string{`key column "id" is text here but bigint`}},
 		{"score in an unknown mode", []string{"score", "sc", "--query", pts, "--mode", "merge"}, exitUsage, []string{"--mode must be upsert or replace"}},
+		{"score a repeated key, upsert", []string{"score", "sc", "--query", pts + " UNION ALL SELECT id, x, y FROM " + w.table("pts") + " WHERE id = 7"},
+			exitFailure, []string{`key column "id" is not unique`, "(id)=(7)"}},
+		{"score a repeated key, replace", []string{"score", "sc", "--query", pts + " UNION ALL SELECT id, x, y FROM " + w.table("pts") + " WHERE id = 7", "--mode", "replace"},
+			exitFailure, []string{`key column "id" is not unique`, "(id)=(7)"}},
+		{"score a NaN, replace", []string{"score", "sc", "--query", pts + " UNION ALL SELECT 9999, 'NaN', 1", "--mode", "replace"},
+			exitFailure, []string{`"x"`, "NaN"}},
 		{"score an unknown model", []string{"score", "nosuch", "--query", pts}, exitFailure, []string{"nosuch"}},
 		{"score the published version unpublished", []string{"score", "sc@1", "--query", pts, "--no-publish"}, exitFailure, []string{"sc@1 is the published version", "--no-publish"}},
 		{"publish a failed version", []string{"publish", "sc@4"}, exitFailure, []string{"the version is failed"}},
@@ -182,7 +188,8 @@ func TestBadInputCorpus(t *testing.T) {
 }
 
 // snapshot describes everything a command could write in the workspace:
-// its relations, its functions and the row count of every registry table.
+// its relations, its functions, the rows of every registry table and of
+// every version's tables.
 func snapshot(t *testing.T, w *workspace) string {
 	t.Helper()
 	var rels, funcs, rows string
@@ -195,6 +202,29 @@ func snapshot(t *testing.T, w *workspace) string {
 		w.scalar(t, "SELECT count(*)::text FROM "+w.table(table), &n)
 		w.scalar(t, "SELECT coalesce(md5(string_agg(x::text, ',' ORDER BY x::text)), '') FROM "+w.table(table)+" x", &sum)
 		counts = append(counts, table+"="+n+"/"+sum)
+	}
+	// The rows of every version's tables: a failed score must leave them
+	// as they were, whatever its mode.
+	var versions []string
+	rs, err := w.conn.Query(t.Context(), `SELECT relname FROM pg_class WHERE relnamespace = $1::regnamespace AND relkind = 'r'
+		AND relname ~ '_v[0-9]+(_memberships)?$' ORDER BY relname`, w.schema)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for rs.Next() {
+		var name string
+		if err := rs.Scan(&name); err != nil {
+			t.Fatal(err)
+		}
+		versions = append(versions, name)
+	}
+	if err := rs.Err(); err != nil {
+		t.Fatal(err)
+	}
+	for _, table := range versions {
+		var sum string
+		w.scalar(t, "SELECT count(*) || ':' || coalesce(md5(string_agg(x::text, ',' ORDER BY x::text)), '') FROM "+w.table(table)+" x", &sum)
+		counts = append(counts, table+"="+sum)
 	}
 	rows = strings.Join(counts, " ")
 	return rels + "\n" + funcs + "\n" + rows

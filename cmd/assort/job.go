@@ -460,10 +460,17 @@ func (f *fitted) setSizes(sizes []int64, rows int64) {
 // duplicated key value, which the server names.
 func keyError(key string, err error) error {
 	var pgErr *pgconn.PgError
-	if errors.As(err, &pgErr) && pgErr.Code == "23505" {
+	if duplicateKey(err) && errors.As(err, &pgErr) {
 		return fmt.Errorf("key column %q is not unique: %s", key, pgErr.Detail)
 	}
 	return fmt.Errorf("key column %q: %w", key, err)
+}
+
+// duplicateKey reports whether err is the server's unique_violation
+// (23505).
+func duplicateKey(err error) bool {
+	var pgErr *pgconn.PgError
+	return errors.As(err, &pgErr) && pgErr.Code == "23505"
 }
 
 // candidateRows turns fitted candidates into registry rows.

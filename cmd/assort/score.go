@@ -93,7 +93,8 @@ type scoreSummary struct {
 }
 
 // scoreJob assigns a query's rows with a stored version and merges them
-// into that version's tables in one transaction.
+// into that version's tables (or, with --mode replace, writes them in
+// place of the tables' rows) in one transaction.
 func scoreJob(ctx context.Context, e *env, s *scoreSpec) (*scoreSummary, error) {
 	reg := schema.Registry{Schema: e.schema}
 	w, release, err := lockedConn(ctx, e, "score", s.name, s.wait)
@@ -149,29 +150,53 @@ func scoreJob(ctx context.Context, e *env, s *scoreSpec) (*scoreSummary, error) 
 	}
 	defer tx.Rollback(context.WithoutCancel(ctx))
 	withMem := out.mixture()
-	for _, ddl := range schema.StagingDDL(v, withMem) {
-		if _, err := tx.Exec(ctx, ddl); err != nil {
-			return nil, fmt.Errorf("stage: %w", err)
+	// Upsert stages the rows in temporary tables and merges them; replace
+	// empties the version's tables and writes the rows straight into them
+	// (frozen, as the tables were just truncated), which is several times
+	// faster than a merge and holds the tables no longer. Either way it
+	// is one transaction: a failure leaves them as they were.
+	results, memberships := schema.StagingResults, schema.StagingMemberships
+	var prep []string
+	if s.mode == "replace" {
+		results, memberships = v.Results(), v.Memberships()
+		prep = []string{schema.TruncateSQL(v, withMem)}
+	} else {
+		prep = schema.StagingDDL(v, withMem)
+	}
+	for _, stmt := range prep {
+		if _, err := tx.Exec(ctx, stmt); err != nil {
+			return nil, fmt.Errorf("prepare %s: %w", v.Results().Sanitize(), err)
 		}
 	}
-	res, err := copyResults(ctx, e, w, schema.StagingResults, m.KeyColumn, rp, out)
+	res, err := copyResults(ctx, e, w, results, m.KeyColumn, rp, out)
 	if err != nil {
+		if duplicateKey(err) { // replace: the primary key of v's table refused a row
+			return nil, keyError(m.KeyColumn, err)
+		}
 		return nil, err
 	}
 	e.logf("read %d rows (%d skipped) to score with %s", counts.read, counts.skipped, v)
-	if _, err := tx.Exec(ctx, schema.StagingKeyDDL(m.KeyColumn)); err != nil {
-		return nil, keyError(m.KeyColumn, err)
+	if s.mode != "replace" {
+		if _, err := tx.Exec(ctx, schema.StagingKeyDDL(m.KeyColumn)); err != nil {
+			return nil, keyError(m.KeyColumn, err)
+		}
 	}
 	if withMem {
 		rp.rows = res.rows
-		if err := copyMemberships(ctx, e, w, schema.StagingMemberships, m.KeyColumn, rp, out); err != nil {
+		if err := copyMemberships(ctx, e, w, memberships, m.KeyColumn, rp, out); err != nil {
 			return nil, err
 		}
 	}
 	if err := rt.end(ctx); err != nil {
 		return nil, err
 	}
-	for _, stmt := range schema.MergeSQL(v, m.KeyColumn, s.mode, withMem) {
+	var finish []string
+	if s.mode == "replace" {
+		finish = schema.AnalyzeSQL(v, withMem)
+	} else {
+		finish = schema.MergeSQL(v, m.KeyColumn, withMem)
+	}
+	for _, stmt := range finish {
 		if _, err := tx.Exec(ctx, stmt); err != nil {
 			return nil, fmt.Errorf("merge into %s: %w", v.Results().Sanitize(), err)
 		}
