@@ -58,18 +58,27 @@ WHERE (r.%s) IS DISTINCT FROM (EXCLUDED.%s)`, res, StagingResults.Sanitize(), k,
 // TRUNCATE holds an exclusive lock on them until the transaction ends, and
 // lets the rows that follow be written with COPY FREEZE.
 func TruncateSQL(v Version, withMemberships bool) string {
-	tables := v.Results().Sanitize()
-	if withMemberships {
-		tables += ", " + v.Memberships().Sanitize()
+	var names []string
+	for _, t := range v.Tables(withMemberships) {
+		names = append(names, t.Sanitize())
 	}
-	return "TRUNCATE " + tables
+	return "TRUNCATE " + strings.Join(names, ", ")
+}
+
+// Tables are v's results table and, withMemberships, its memberships
+// table.
+func (v Version) Tables(withMemberships bool) []pgx.Identifier {
+	if withMemberships {
+		return []pgx.Identifier{v.Results(), v.Memberships()}
+	}
+	return []pgx.Identifier{v.Results()}
 }
 
 // AnalyzeSQL analyses v's tables after their rows changed.
 func AnalyzeSQL(v Version, withMemberships bool) []string {
-	stmts := []string{"ANALYZE " + v.Results().Sanitize()}
-	if withMemberships {
-		stmts = append(stmts, "ANALYZE "+v.Memberships().Sanitize())
+	var stmts []string
+	for _, t := range v.Tables(withMemberships) {
+		stmts = append(stmts, "ANALYZE "+t.Sanitize())
 	}
 	return stmts
 }

@@ -102,6 +102,24 @@ func (t *readTx) feed(chunkRows int, sc *fit.Scaling, counts *readCounts) feedFu
 	}
 }
 
+// reads reports whether the read transaction holds a lock on any of
+// tables, as it does on every table its query reads (taken when the query
+// was described, held until the transaction ends). It asks through conn,
+// another connection.
+func (t *readTx) reads(ctx context.Context, conn *pgx.Conn, tables []pgx.Identifier) (bool, error) {
+	names := make([]string, len(tables))
+	for i, tb := range tables {
+		names[i] = tb.Sanitize()
+	}
+	var held bool
+	err := conn.QueryRow(ctx, `SELECT EXISTS (SELECT 1 FROM pg_locks WHERE pid = $1 AND locktype = 'relation'
+		AND relation = ANY ($2::text[]::regclass[]))`, t.conn.PgConn().PID(), names).Scan(&held)
+	if err != nil {
+		return false, fmt.Errorf("find the query's tables: %w", err)
+	}
+	return held, nil
+}
+
 // count returns the number of rows the query returns, in the snapshot.
 // The statement is the query wrapped as CopySQL wraps it.
 func (t *readTx) count(ctx context.Context) (int64, error) {

@@ -2,6 +2,7 @@ package main
 
 import (
 	"fmt"
+	"strings"
 	"testing"
 )
 
@@ -107,6 +108,40 @@ func TestScoreEqualsFit(t *testing.T) {
 		w.scalar(t, "SELECT count(*) FROM "+w.table(c.name), &total)
 		if same != 450 || total != 450 {
 			t.Errorf("%s: %d of %d rows identical after scoring the fit's own query, want 450 of 450", c.name, same, total)
+		}
+	}
+}
+
+// TestScoreReplaceReadingItself replaces a version's rows with a query
+// that reads the version's own view (keep only the rows with an even key):
+// the read's lock on the table would block the truncation of an in-place
+// replacement, so it goes through staging and must finish, with exactly
+// the query's rows, for k-means and for a mixture (whose memberships
+// table is replaced too).
+func TestScoreReplaceReadingItself(t *testing.T) {
+	w := newWorkspace(t)
+	w.blobs(t, "pts", []int{60, 40}, 8)
+	q := "SELECT id, x, y FROM " + w.table("pts")
+	for _, method := range []string{"kmeans", "gmm"} {
+		name := "self_" + method
+		mustAssort(t, w.args("fit", name, "--query", q, "--key", "id", "--k", "2", "--method", method, "--lock-timeout", "5s")...)
+		self := "SELECT p.id, p.x, p.y FROM " + w.table("pts") + " p JOIN " + w.table(name) + " r USING (id) WHERE p.id % 2 = 0"
+		code, out, stderr := assort(t, append(w.args("score", name, "--query", self, "--mode", "replace", "--lock-timeout", "5s"), "-q=false")...)
+		if code != exitOK || !strings.Contains(stderr, "through staging tables") {
+			t.Fatalf("%s: exit %d, want 0 and a note on staging; output:\n%s%s", method, code, out, stderr)
+		}
+		var rows, odd int
+		w.scalar(t, "SELECT count(*) FROM "+w.table(name), &rows)
+		w.scalar(t, "SELECT count(*) FROM "+w.table(name)+" WHERE id % 2 = 1", &odd)
+		if rows != 50 || odd != 0 {
+			t.Errorf("%s: %d rows (%d with odd keys) after the replacement, want 50 (0)", method, rows, odd)
+		}
+		if method == "gmm" {
+			w.scalar(t, "SELECT count(DISTINCT id) FROM "+w.table(name+"_memberships"), &rows)
+			w.scalar(t, "SELECT count(*) FROM "+w.table(name+"_memberships")+" WHERE id % 2 = 1", &odd)
+			if rows != 50 || odd != 0 {
+				t.Errorf("memberships: %d keys (%d odd) after the replacement, want 50 (0)", rows, odd)
+			}
 		}
 	}
 }

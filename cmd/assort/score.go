@@ -144,24 +144,36 @@ func scoreJob(ctx context.Context, e *env, s *scoreSpec) (*scoreSummary, error) 
 	var counts readCounts
 	rp := rowPasses{open: rt.feed(plan.readRows, sc, &counts), rows: -1, workers: plan.workers}
 
+	withMem := out.mixture()
+	// Upsert stages the rows in temporary tables and merges them. Replace
+	// empties the version's tables and writes the rows straight into them
+	// (frozen, as the tables were just truncated), several times faster
+	// than a merge; but the truncation's lock would wait for a query that
+	// reads those very tables (its read holds a lock on them until it
+	// ends), so such a query is replaced through staging, truncating once
+	// the read is over. Either way it is one transaction: a failure leaves
+	// the tables as they were.
+	inPlace := false
+	if s.mode == "replace" {
+		reads, err := rt.reads(ctx, w, v.Tables(withMem))
+		if err != nil {
+			return nil, err
+		}
+		inPlace = !reads
+		if reads {
+			e.logf("the query reads %s itself; its rows are replaced through staging tables", v)
+		}
+	}
 	tx, err := w.Begin(ctx)
 	if err != nil {
 		return nil, err
 	}
 	defer tx.Rollback(context.WithoutCancel(ctx))
-	withMem := out.mixture()
-	// Upsert stages the rows in temporary tables and merges them; replace
-	// empties the version's tables and writes the rows straight into them
-	// (frozen, as the tables were just truncated), which is several times
-	// faster than a merge and holds the tables no longer. Either way it
-	// is one transaction: a failure leaves them as they were.
 	results, memberships := schema.StagingResults, schema.StagingMemberships
-	var prep []string
-	if s.mode == "replace" {
+	prep := schema.StagingDDL(v, withMem)
+	if inPlace {
 		results, memberships = v.Results(), v.Memberships()
 		prep = []string{schema.TruncateSQL(v, withMem)}
-	} else {
-		prep = schema.StagingDDL(v, withMem)
 	}
 	for _, stmt := range prep {
 		if _, err := tx.Exec(ctx, stmt); err != nil {
@@ -170,13 +182,13 @@ func scoreJob(ctx context.Context, e *env, s *scoreSpec) (*scoreSummary, error) 
 	}
 	res, err := copyResults(ctx, e, w, results, m.KeyColumn, rp, out)
 	if err != nil {
-		if duplicateKey(err) { // replace: the primary key of v's table refused a row
+		if duplicateKey(err) { // in place: the primary key of v's table refused a row
 			return nil, keyError(m.KeyColumn, err)
 		}
 		return nil, err
 	}
 	e.logf("read %d rows (%d skipped) to score with %s", counts.read, counts.skipped, v)
-	if s.mode != "replace" {
+	if !inPlace {
 		if _, err := tx.Exec(ctx, schema.StagingKeyDDL(m.KeyColumn)); err != nil {
 			return nil, keyError(m.KeyColumn, err)
 		}
@@ -191,9 +203,12 @@ func scoreJob(ctx context.Context, e *env, s *scoreSpec) (*scoreSummary, error) 
 		return nil, err
 	}
 	var finish []string
-	if s.mode == "replace" {
+	switch {
+	case inPlace:
 		finish = schema.AnalyzeSQL(v, withMem)
-	} else {
+	case s.mode == "replace":
+		finish = append([]string{schema.TruncateSQL(v, withMem)}, schema.MergeSQL(v, m.KeyColumn, withMem)...)
+	default:
 		finish = schema.MergeSQL(v, m.KeyColumn, withMem)
 	}
 	for _, stmt := range finish {
