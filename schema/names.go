@@ -67,6 +67,15 @@ func (v Version) Memberships() pgx.Identifier {
 	return pgx.Identifier{v.Schema, v.Model + "_v" + strconv.Itoa(v.N) + "_memberships"}
 }
 
+// Tables are v's results table and, withMemberships, its memberships
+// table.
+func (v Version) Tables(withMemberships bool) []pgx.Identifier {
+	if withMemberships {
+		return []pgx.Identifier{v.Results(), v.Memberships()}
+	}
+	return []pgx.Identifier{v.Results()}
+}
+
 // View is the stable view on the published version's results.
 func View(schema, model string) pgx.Identifier { return pgx.Identifier{schema, model} }
 

@@ -123,8 +123,8 @@ func (r Registry) Recover(ctx context.Context, q Querier, model string) ([]int, 
 // Reserve records the start of a run: it takes the next version number of
 // m.Name (one above every version in the registry and every dropped one,
 // so a number is never given twice while the name lives), inserts m with
-// status 'running' and sets m.Version. Call it in its
-// own short transaction (or autocommit) so that a DBA sees the run.
+// status 'running' and sets m.Version. Call it in its own short
+// transaction (or autocommit) so that a DBA sees the run.
 func (r Registry) Reserve(ctx context.Context, q Querier, m *Model) error {
 	err := q.QueryRow(ctx, "INSERT INTO "+r.table("models")+
 		` (name, version, status, method, k, features, key_column, key_type, query, scale,

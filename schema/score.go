@@ -65,15 +65,6 @@ func TruncateSQL(v Version, withMemberships bool) string {
 	return "TRUNCATE " + strings.Join(names, ", ")
 }
 
-// Tables are v's results table and, withMemberships, its memberships
-// table.
-func (v Version) Tables(withMemberships bool) []pgx.Identifier {
-	if withMemberships {
-		return []pgx.Identifier{v.Results(), v.Memberships()}
-	}
-	return []pgx.Identifier{v.Results()}
-}
-
 // AnalyzeSQL analyses v's tables after their rows changed.
 func AnalyzeSQL(v Version, withMemberships bool) []string {
 	var stmts []string
